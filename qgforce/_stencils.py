@@ -1,0 +1,314 @@
+"""Raw finite-difference kernels on numpy arrays (no xarray here).
+
+Every kernel is second order: centred three-point differences on (possibly non-uniform)
+coordinates in the interior, second-order one-sided three-point differences at open edges,
+and wrap-around where an axis is periodic.  Horizontal operators are written once, for
+orthogonal curvilinear coordinates (ξ, η) with scale factors ``hx``, ``hy``
+(dx = hx dξ, dy = hy dη): lat–lon grids use ξ = λ, η = φ, hx = a cos φ, hy = a; conformal
+projected grids use ξ = x, η = y, hx = hy = 1/m.
+
+Conventions: the horizontal axes are the last two axes of every array, ``(..., η, ξ)``;
+the vertical axis is passed explicitly.  Kernels never modify their inputs and allocate
+their output once; temporaries are kept to one or two arrays of the input's size.
+
+References
+----------
+Fornberg, B., 1988: Generation of finite difference formulas on arbitrarily spaced grids.
+Math. Comp., 51, 699-706 (the three-point weights used here).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .errors import GridError
+
+__all__ = [
+    "first_derivative",
+    "flux_second_derivative",
+    "horizontal_gradient",
+    "horizontal_divergence",
+    "horizontal_curl",
+    "horizontal_laplacian",
+    "is_uniform",
+    "fd_weights",
+]
+
+
+def is_uniform(coord: np.ndarray, rtol: float = 1e-9) -> bool:
+    """Whether a 1-D coordinate has constant spacing (to relative tolerance ``rtol``)."""
+    d = np.diff(coord)
+    return bool(d.size == 0 or np.all(np.abs(d - d[0]) <= rtol * abs(d[0])))
+
+
+def _need_points(n: int, axis_name: str, needed: int = 3) -> None:
+    if n < needed:
+        raise GridError(
+            f"a derivative along {axis_name!r} needs at least {needed} points; found {n}. "
+            f"Select a larger domain or drop this diagnostic for a single row/level."
+        )
+
+
+def _sl(axis: int, ndim: int, s: slice | int) -> tuple:
+    idx = [slice(None)] * ndim
+    idx[axis] = s
+    return tuple(idx)
+
+
+def _bshape(w: np.ndarray, axis: int, ndim: int) -> np.ndarray:
+    """Reshape 1-D weights so they broadcast along ``axis`` of an ``ndim`` array."""
+    shape = [1] * ndim
+    shape[axis] = w.size
+    return w.reshape(shape)
+
+
+def fd_weights(x0: float, xs: np.ndarray, order: int) -> np.ndarray:
+    """Finite-difference weights for the ``order``-th derivative at ``x0`` from points ``xs``.
+
+    Solves the Vandermonde (Taylor) conditions sum_k w_k (x_k − x0)^q / q! = δ_{q,order},
+    q = 0 … len(xs)−1 (the weights of Fornberg 1988, computed directly for a few points).
+    """
+    from math import factorial
+
+    d = np.asarray(xs, dtype=np.float64) - x0
+    n = d.size
+    A = np.array([d**q / factorial(q) for q in range(n)])
+    rhs = np.zeros(n)
+    rhs[order] = 1.0
+    return np.linalg.solve(A, rhs)
+
+
+def _edge_weights(c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Second-order one-sided three-point weights at the first and last point of ``c``."""
+    h1, h2 = c[1] - c[0], c[2] - c[1]
+    lo = np.array([-(2 * h1 + h2) / (h1 * (h1 + h2)), (h1 + h2) / (h1 * h2), -h1 / (h2 * (h1 + h2))])
+    g1, g2 = c[-1] - c[-2], c[-2] - c[-3]  # spacings counted from the end
+    hi = np.array([g1 / (g2 * (g1 + g2)), -(g1 + g2) / (g1 * g2), (2 * g1 + g2) / (g1 * (g1 + g2))])
+    return lo, hi  # hi applies to points (-3, -2, -1)
+
+
+def first_derivative(a: np.ndarray, coord: np.ndarray, axis: int, periodic: bool = False) -> np.ndarray:
+    """Second-order first derivative ∂a/∂c along ``axis``.
+
+    Parameters
+    ----------
+    a : ndarray
+        Field.
+    coord : ndarray, 1-D
+        Coordinate values along ``axis`` (strictly monotonic; any spacing unless periodic).
+    axis : int
+        Axis of ``a`` to differentiate along.
+    periodic : bool
+        Wrap around (the spacing must then be uniform; the period is ``n`` spacings).
+
+    Returns
+    -------
+    ndarray
+        ∂a/∂c, same shape as ``a``.
+
+    Notes
+    -----
+    Interior: f'_i = −h₊/(h₋(h₋+h₊)) f_{i−1} + (h₊−h₋)/(h₋h₊) f_i + h₋/(h₊(h₋+h₊)) f_{i+1}
+    (Fornberg 1988), which reduces to (f_{i+1} − f_{i−1})/(2h) on uniform spacing (fast path).
+    Open edges: the one-sided three-point formula, also second order.
+    """
+    axis = axis % a.ndim
+    n = a.shape[axis]
+    _need_points(n, f"axis {axis}")
+    coord = np.asarray(coord, dtype=np.float64)
+    out = np.empty(a.shape, dtype=np.result_type(a.dtype, np.float64))
+    nd = a.ndim
+    S = lambda s: _sl(axis, nd, s)  # noqa: E731
+    if is_uniform(coord):
+        h = coord[1] - coord[0]
+        np.subtract(a[S(slice(2, None))], a[S(slice(None, -2))], out=out[S(slice(1, -1))])
+        out[S(slice(1, -1))] *= 1.0 / (2.0 * h)
+        if periodic:
+            out[S(0)] = (a[S(1)] - a[S(-1)]) / (2.0 * h)
+            out[S(-1)] = (a[S(0)] - a[S(-2)]) / (2.0 * h)
+            return out
+    else:
+        if periodic:
+            raise GridError("a periodic axis must have uniform spacing; found a non-uniform coordinate")
+        hm = coord[1:-1] - coord[:-2]
+        hp = coord[2:] - coord[1:-1]
+        wm = _bshape(-hp / (hm * (hm + hp)), axis, nd)
+        w0 = _bshape((hp - hm) / (hm * hp), axis, nd)
+        wp = _bshape(hm / (hp * (hm + hp)), axis, nd)
+        inner = out[S(slice(1, -1))]
+        np.multiply(a[S(slice(None, -2))], wm, out=inner)
+        inner += a[S(slice(1, -1))] * w0
+        inner += a[S(slice(2, None))] * wp
+    lo, hi = _edge_weights(coord)
+    out[S(0)] = lo[0] * a[S(0)] + lo[1] * a[S(1)] + lo[2] * a[S(2)]
+    out[S(-1)] = hi[0] * a[S(-3)] + hi[1] * a[S(-2)] + hi[2] * a[S(-1)]
+    return out
+
+
+def flux_second_derivative(
+    a: np.ndarray, coord: np.ndarray, coef: np.ndarray, axis: int, periodic: bool = False
+) -> np.ndarray:
+    """Compact second-order ∂/∂c (C ∂a/∂c) along ``axis``.
+
+    Parameters
+    ----------
+    a : ndarray
+        Field.
+    coord : ndarray, 1-D
+        Coordinate along ``axis``.
+    coef : ndarray
+        The coefficient C, broadcastable to ``a`` (typically shape (ny, 1) or (ny, nx)).
+    axis : int
+        Axis to differentiate along.
+    periodic : bool
+        Wrap around (uniform spacing).
+
+    Returns
+    -------
+    ndarray
+
+    Notes
+    -----
+    Interior: [C_{i+½}(a_{i+1}−a_i)/(c_{i+1}−c_i) − C_{i−½}(a_i−a_{i−1})/(c_i−c_{i−1})] / ((c_{i+1}−c_{i−1})/2)
+    with C_{i±½} the mean of the neighbouring point values: the stencil of the QG operator in
+    :mod:`qgforce.solver`.  Open edges: the one-sided three-point derivative applied twice
+    (to a, then to C ∂a/∂c), second order.
+    """
+    axis = axis % a.ndim
+    n = a.shape[axis]
+    _need_points(n, f"axis {axis}", 3 if periodic else 4)
+    nd = a.ndim
+    S = lambda s: _sl(axis, nd, s)  # noqa: E731
+    coord = np.asarray(coord, dtype=np.float64)
+    c = np.asarray(coef, dtype=np.float64)
+    c = c.reshape((1,) * (nd - c.ndim) + c.shape)
+    varies = c.shape[axis] > 1
+    out = np.empty(a.shape, dtype=np.result_type(a.dtype, np.float64))
+    if periodic:
+        h = coord[1] - coord[0]
+        flux = np.empty(a.shape, dtype=out.dtype)  # flux[i] at i+1/2
+        np.subtract(a[S(slice(1, None))], a[S(slice(None, -1))], out=flux[S(slice(None, -1))])
+        flux[S(-1)] = a[S(0)] - a[S(-1)]
+        if varies:
+            chalf = np.empty(c.shape)
+            chalf[S(slice(None, -1))] = 0.5 * (c[S(slice(1, None))] + c[S(slice(None, -1))])
+            chalf[S(-1)] = 0.5 * (c[S(0)] + c[S(-1)])
+            flux *= chalf
+        else:
+            flux *= c
+        np.subtract(flux[S(slice(1, None))], flux[S(slice(None, -1))], out=out[S(slice(1, None))])
+        out[S(0)] = flux[S(0)] - flux[S(-1)]
+        out *= 1.0 / (h * h)
+        return out
+    flux = np.diff(a, axis=axis)  # a_{i+1} - a_i at i+1/2
+    flux *= 0.5 * (c[S(slice(1, None))] + c[S(slice(None, -1))]) if varies else c
+    flux *= _bshape(1.0 / np.diff(coord), axis, nd)
+    inner = out[S(slice(1, -1))]
+    np.subtract(flux[S(slice(1, None))], flux[S(slice(None, -1))], out=inner)
+    inner *= _bshape(2.0 / (coord[2:] - coord[:-2]), axis, nd)
+    del flux
+    # open edges: C a'' + C' a' with one-sided four-point a'' and three-point a', C' (second order)
+    for end, strip in ((0, slice(0, 4)), (-1, slice(-4, None))):
+        xs = coord[strip]
+        x0 = xs[0] if end == 0 else xs[-1]
+        w1 = fd_weights(x0, xs[:3] if end == 0 else xs[1:], 1)
+        w2 = fd_weights(x0, xs, 2)
+        pts = list(range(4)) if end == 0 else list(range(-4, 0))
+        p3 = pts[:3] if end == 0 else pts[1:]
+        a2 = sum(w * a[S(k)] for w, k in zip(w2, pts))
+        a1 = sum(w * a[S(k)] for w, k in zip(w1, p3))
+        if varies:
+            c1 = sum(w * c[S(k)] for w, k in zip(w1, p3))
+            out[S(end)] = c[S(end)] * a2 + c1 * a1
+        else:
+            out[S(end)] = c[S(0)] * a2 if c.ndim else c * a2
+    return out
+
+
+def _pole_fix(out: np.ndarray, pole_rows: tuple, eta: np.ndarray) -> np.ndarray:
+    """Replace pole rows by the linear extrapolation of the two nearest rows (second order)."""
+    ny = out.shape[-2]
+    for j in pole_rows:
+        j1, j2 = (1, 2) if j == 0 else (ny - 2, ny - 3)
+        t = (eta[j] - eta[j1]) / (eta[j1] - eta[j2])
+        out[..., j, :] = out[..., j1, :] + t * (out[..., j1, :] - out[..., j2, :])
+    return out
+
+
+def _safe_inverse(h: np.ndarray) -> np.ndarray:
+    with np.errstate(divide="ignore"):
+        inv = 1.0 / h
+    inv[~np.isfinite(inv)] = 0.0  # pole rows: overwritten by _pole_fix
+    return inv
+
+
+def horizontal_gradient(a, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
+    """(∂a/∂x, ∂a/∂y) = ((1/hx) ∂a/∂ξ, (1/hy) ∂a/∂η).
+
+    Pole rows (hx = 0) take the zonal component extrapolated linearly from the two nearest
+    rows, the limit of the eastward component along each meridian (second order).
+    """
+    gx = first_derivative(a, xi, -1, periodic_x)
+    gx *= _safe_inverse(np.asarray(hx, dtype=np.float64))
+    gy = first_derivative(a, eta, -2)
+    gy *= 1.0 / np.asarray(hy, dtype=np.float64)
+    if pole_rows:
+        _pole_fix(gx, pole_rows, eta)
+    return gx, gy
+
+
+def horizontal_divergence(u, v, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
+    """∇·V = (1/(hx hy)) [∂(hy u)/∂ξ + ∂(hx v)/∂η].
+
+    On the sphere this is (1/(a cos φ)) [∂u/∂λ + ∂(v cos φ)/∂φ], which keeps the metric
+    term −v tan φ / a.  Pole rows: linear extrapolation from the two nearest rows.
+    """
+    hx = np.asarray(hx, dtype=np.float64)
+    hy = np.asarray(hy, dtype=np.float64)
+    out = first_derivative(u * hy, xi, -1, periodic_x)
+    out += first_derivative(v * hx, eta, -2)
+    out *= _safe_inverse(hx * hy)
+    if pole_rows:
+        _pole_fix(out, pole_rows, eta)
+    return out
+
+
+def horizontal_curl(u, v, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
+    """k·∇×V = (1/(hx hy)) [∂(hy v)/∂ξ − ∂(hx u)/∂η].
+
+    On the sphere: ζ = (1/(a cos φ)) [∂v/∂λ − ∂(u cos φ)/∂φ] (keeps the metric term
+    u tan φ / a).  Pole rows: linear extrapolation from the two nearest rows.
+    """
+    hx = np.asarray(hx, dtype=np.float64)
+    hy = np.asarray(hy, dtype=np.float64)
+    out = first_derivative(v * hy, xi, -1, periodic_x)
+    out -= first_derivative(u * hx, eta, -2)
+    out *= _safe_inverse(hx * hy)
+    if pole_rows:
+        _pole_fix(out, pole_rows, eta)
+    return out
+
+
+def horizontal_laplacian(a, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
+    """∇²a = (1/(hx hy)) [∂ξ((hy/hx) ∂ξ a) + ∂η((hx/hy) ∂η a)], compact flux form.
+
+    This is the horizontal part of the QG operator in :mod:`qgforce.solver`, point for
+    point, so inverting and re-applying round-trips to round-off.  Pole rows: linear
+    extrapolation from the two nearest rows.
+    """
+    hx = np.asarray(hx, dtype=np.float64)
+    hy = np.asarray(hy, dtype=np.float64)
+    cx = hy * _safe_inverse(hx)
+    out = flux_second_derivative(a, xi, cx, -1, periodic_x)
+    out += flux_second_derivative(a, eta, hx / hy, -2)
+    out *= _safe_inverse(hx * hy)
+    for j in pole_rows:
+        # polar cap (finite volume): flux of ∇a through the cap edge at the half latitude
+        # divided by the cap area 2π a² (1 − |sin φ_c|); second order, one value per row.
+        j1 = 1 if j == 0 else -2
+        phic = 0.5 * (eta[j] + eta[j1])
+        dphi = abs(eta[j1] - eta[j])
+        radius = float(np.asarray(hy).ravel()[0])
+        flux = (a[..., j1, :] - a[..., j, :]).mean(axis=-1) * 2 * np.pi * np.cos(phic) / dphi
+        out[..., j, :] = (flux / (2 * np.pi * radius**2 * (1 - abs(np.sin(phic)))))[..., None]
+    return out

@@ -1,0 +1,70 @@
+"""The exceptions and warnings qgforce raises.
+
+One base class, :class:`QGForceError`, so that callers (and the command line) can
+catch every user-facing problem at once; a few precise subclasses say what kind of
+problem it is.  Messages always say what was expected, what was found and how to fix it.
+"""
+
+from __future__ import annotations
+
+
+class QGForceError(Exception):
+    """Base class of every error qgforce raises for bad input or an impossible request."""
+
+
+class MissingVariableError(QGForceError, KeyError):
+    """A variable or coordinate needed for a computation is not in the dataset."""
+
+    def __str__(self) -> str:  # KeyError quotes its message; keep it readable
+        return str(self.args[0]) if self.args else ""
+
+
+class UnitsError(QGForceError, ValueError):
+    """Units are missing, unknown, or not convertible to what the computation needs."""
+
+
+class GridError(QGForceError, ValueError):
+    """The grid cannot be used: coordinates duplicated, non-monotonic, too short, or not pressure."""
+
+
+class InputDataError(QGForceError, ValueError):
+    """Values are unusable (all NaN, NaN where a solve needs numbers, negative stability...)."""
+
+
+class ConvergenceError(QGForceError, RuntimeError):
+    """An iterative solver did not reach its tolerance.
+
+    Attributes
+    ----------
+    residuals : list of float
+        The relative residual after each iteration, for diagnosis.
+    """
+
+    def __init__(self, message: str, residuals=None):
+        super().__init__(message)
+        self.residuals = list(residuals or [])
+
+
+class QGForceWarning(UserWarning):
+    """Base class of qgforce's warnings."""
+
+
+class EquatorialMaskWarning(QGForceWarning):
+    """Points near the equator were masked because quasi-geostrophy does not hold there."""
+
+
+class DataQualityWarning(QGForceWarning):
+    """Input values were altered (clipped, floored, filled) to make a computation possible."""
+
+
+__all__ = [
+    "QGForceError",
+    "MissingVariableError",
+    "UnitsError",
+    "GridError",
+    "InputDataError",
+    "ConvergenceError",
+    "QGForceWarning",
+    "EquatorialMaskWarning",
+    "DataQualityWarning",
+]
