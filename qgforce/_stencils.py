@@ -30,6 +30,7 @@ __all__ = [
     "horizontal_divergence",
     "horizontal_curl",
     "horizontal_laplacian",
+    "velocity_gradient",
     "is_uniform",
     "fd_weights",
 ]
@@ -312,3 +313,39 @@ def horizontal_laplacian(a, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
         flux = (a[..., j1, :] - a[..., j, :]).mean(axis=-1) * 2 * np.pi * np.cos(phic) / dphi
         out[..., j, :] = (flux / (2 * np.pi * radius**2 * (1 - abs(np.sin(phic)))))[..., None]
     return out
+
+
+def velocity_gradient(u, v, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
+    """Physical components of the horizontal velocity-gradient tensor, metric terms included.
+
+    Returns ``(ux, vx, uy, vy)``, the covariant derivatives ∂u/∂x, ∂v/∂x, ∂u/∂y, ∂v/∂y in
+    orthogonal curvilinear coordinates (Batchelor 1967, *An Introduction to Fluid Dynamics*,
+    appendix 2):
+
+        ux = (1/hx) ∂u/∂ξ + v/(hx hy) ∂hx/∂η      vx = (1/hx) ∂v/∂ξ − u/(hx hy) ∂hx/∂η
+        uy = (1/hy) ∂u/∂η − v/(hx hy) ∂hy/∂ξ      vy = (1/hy) ∂v/∂η + u/(hx hy) ∂hy/∂ξ
+
+    On the sphere (hx = a cos φ, hy = a): ux = ∂u/∂x − v tan φ / a, vx = ∂v/∂x + u tan φ / a,
+    so that ux + vy is the divergence, vx − uy the vorticity, ux − vy and vx + uy the stretching
+    and shearing deformation, all with their spherical metric terms.
+    """
+    hx = np.asarray(hx, dtype=np.float64)
+    hy = np.asarray(hy, dtype=np.float64)
+    ihx = _safe_inverse(hx)
+    ihy = 1.0 / hy
+    dhx_deta = first_derivative(np.broadcast_to(hx, (eta.size, hx.shape[-1])), eta, -2)
+    dhy_dxi = (
+        first_derivative(np.broadcast_to(hy, (hy.shape[-2], xi.size)), xi, -1, periodic_x)
+        if hy.shape[-1] > 1
+        else np.zeros_like(hy)
+    )
+    mx = dhx_deta * ihx * ihy
+    my = dhy_dxi * ihx * ihy
+    ux = first_derivative(u, xi, -1, periodic_x) * ihx + v * mx
+    vx = first_derivative(v, xi, -1, periodic_x) * ihx - u * mx
+    uy = first_derivative(u, eta, -2) * ihy - v * my
+    vy = first_derivative(v, eta, -2) * ihy + u * my
+    if pole_rows:
+        for comp in (ux, vx, uy, vy):
+            _pole_fix(comp, pole_rows, eta)
+    return ux, vx, uy, vy

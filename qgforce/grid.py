@@ -56,6 +56,26 @@ def _monotonic_increasing(values: np.ndarray, name: str) -> None:
         )
 
 
+def _map_factor_along(c: np.ndarray, phi: np.ndarray, lam: np.ndarray, radius: float, axis: int) -> np.ndarray:
+    """Map factor along one grid axis: grid distance over great-circle distance (second order).
+
+    Computed at half points from the haversine distance between neighbours, then averaged to
+    the points (linear extrapolation at the two edges).
+    """
+    sl = lambda s: (slice(None), s) if axis == 1 else (s, slice(None))  # noqa: E731
+    p1, p2 = phi[sl(slice(None, -1))], phi[sl(slice(1, None))]
+    l1, l2 = lam[sl(slice(None, -1))], lam[sl(slice(1, None))]
+    h = np.sin((p2 - p1) / 2) ** 2 + np.cos(p1) * np.cos(p2) * np.sin((l2 - l1) / 2) ** 2
+    dist = 2 * radius * np.arcsin(np.sqrt(np.clip(h, 0.0, 1.0)))
+    dc = np.diff(c)
+    mh = (dc[None, :] if axis == 1 else dc[:, None]) / dist
+    m = np.empty(phi.shape)
+    m[sl(slice(1, -1))] = 0.5 * (mh[sl(slice(1, None))] + mh[sl(slice(None, -1))])
+    m[sl(0)] = 1.5 * mh[sl(0)] - 0.5 * mh[sl(1)]
+    m[sl(-1)] = 1.5 * mh[sl(-1)] - 0.5 * mh[sl(-2)]
+    return m
+
+
 @dataclass(frozen=True, eq=False)
 class Grid:
     """Read-only horizontal geometry of a normalised dataset.
@@ -133,7 +153,9 @@ class Grid:
             y = np.asarray(obj["y"].values, dtype=np.float64)
             lat2 = obj["latitude"].transpose("y", "x").values
             lon2 = obj["longitude"].transpose("y", "x").values
-            return cls.projected(x, y, lat2, lon2, radius=radius)
+            mf = obj.coords.get("map_factor")
+            mf = None if mf is None else np.broadcast_to(mf.transpose(*[d for d in ("y", "x") if d in mf.dims]).values, (y.size, x.size))
+            return cls.projected(x, y, lat2, lon2, radius=radius, map_factor=mf)
         raise GridError(
             f"no horizontal grid found: expected dimensions ('latitude', 'longitude') or ('y', 'x'); "
             f"found dimensions {tuple(obj.dims)}. Open the data with qgforce.open_dataset first."
@@ -175,8 +197,21 @@ class Grid:
         )
 
     @classmethod
-    def projected(cls, x, y, latitude, longitude, radius: float = C.EARTH_RADIUS) -> "Grid":
+    def projected(cls, x, y, latitude, longitude, radius: float = C.EARTH_RADIUS, map_factor=None) -> "Grid":
         """A conformal projected grid from 1-D x, y [m] and 2-D latitude/longitude [degrees].
+
+        Parameters
+        ----------
+        x, y : array_like
+            1-D grid coordinates [m], increasing.
+        latitude, longitude : array_like
+            2-D (ny, nx) [degrees].
+        radius : float
+            Earth radius [m].
+        map_factor : array_like, optional
+            The map factor m (ny, nx) when the model provides it (a ``map_factor``
+            coordinate in the dataset); m = 1 gives a Cartesian (f- or β-plane) grid.  When
+            omitted it is computed from latitude and longitude as below.
 
         Notes
         -----
@@ -205,15 +240,20 @@ class Grid:
         dphi_dx = first_derivative(phi, x, -1)
         east = radius * cos * dlam_dx
         north = radius * dphi_dx
-        mx = 1.0 / np.hypot(east, north)
-        lam_y = np.unwrap(np.deg2rad(lon2), axis=0)
-        my = 1.0 / np.hypot(radius * cos * first_derivative(lam_y, y, -2), radius * first_derivative(phi, y, -2))
-        if np.nanmax(np.abs(mx / my - 1.0)) > 0.01:
-            raise GridError(
-                "the projected grid is not conformal (map factors along x and y differ by more than 1 %); "
-                "qgforce supports conformal projections (Lambert conformal, polar stereographic, Mercator)"
-            )
-        m = 0.5 * (mx + my)
+        if map_factor is not None:
+            m = np.array(map_factor, dtype=np.float64)
+            if m.shape != lat2.shape or not np.all(np.isfinite(m) & (m > 0)):
+                raise GridError(f"map_factor must be positive and finite with shape {lat2.shape}; found shape {m.shape}")
+        else:
+            mx = _map_factor_along(x, phi, lam, radius, axis=1)
+            my = _map_factor_along(y, phi, lam, radius, axis=0)
+            if np.nanmax(np.abs(mx / my - 1.0)) > 0.01:
+                raise GridError(
+                    "the projected grid is not conformal (map factors along x and y differ by more than 1 %); "
+                    "qgforce supports conformal projections (Lambert conformal, polar stereographic, Mercator), "
+                    "or pass the model's map factor as a 'map_factor' coordinate"
+                )
+            m = 0.5 * (mx + my)
         return cls(
             kind="projected",
             ydim="y",
