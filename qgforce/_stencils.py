@@ -31,6 +31,7 @@ __all__ = [
     "horizontal_curl",
     "horizontal_laplacian",
     "velocity_gradient",
+    "blocked",
     "is_uniform",
     "fd_weights",
 ]
@@ -147,9 +148,15 @@ def first_derivative(a: np.ndarray, coord: np.ndarray, axis: int, periodic: bool
 
 
 def flux_second_derivative(
-    a: np.ndarray, coord: np.ndarray, coef: np.ndarray, axis: int, periodic: bool = False
+    a: np.ndarray,
+    coord: np.ndarray,
+    coef,
+    axis: int,
+    periodic: bool = False,
+    scale=None,
+    out: np.ndarray | None = None,
 ) -> np.ndarray:
-    """Compact second-order ∂/∂c (C ∂a/∂c) along ``axis``.
+    """Compact second-order ∂/∂c (C ∂a/∂c) along ``axis``, optionally scaled and accumulated.
 
     Parameters
     ----------
@@ -157,12 +164,17 @@ def flux_second_derivative(
         Field.
     coord : ndarray, 1-D
         Coordinate along ``axis``.
-    coef : ndarray
+    coef : array_like
         The coefficient C, broadcastable to ``a`` (typically shape (ny, 1) or (ny, nx)).
     axis : int
         Axis to differentiate along.
     periodic : bool
         Wrap around (uniform spacing).
+    scale : array_like, optional
+        A factor broadcastable to ``a`` that multiplies the result (folded into the stencil
+        weights, so it costs no extra pass).
+    out : ndarray, optional
+        When given, the result is added into ``out`` (which is returned).
 
     Returns
     -------
@@ -172,8 +184,9 @@ def flux_second_derivative(
     -----
     Interior: [C_{i+½}(a_{i+1}−a_i)/(c_{i+1}−c_i) − C_{i−½}(a_i−a_{i−1})/(c_i−c_{i−1})] / ((c_{i+1}−c_{i−1})/2)
     with C_{i±½} the mean of the neighbouring point values: the stencil of the QG operator in
-    :mod:`qgforce.solver`.  Open edges: the one-sided three-point derivative applied twice
-    (to a, then to C ∂a/∂c), second order.
+    :mod:`qgforce.solver`.  With uniform spacing and C constant along the axis this is
+    C (a_{i+1} − 2a_i + a_{i−1}) / h².  Open edges: C a'' + C' a' with the one-sided four-point
+    second derivative and three-point first derivatives (second order).
     """
     axis = axis % a.ndim
     n = a.shape[axis]
@@ -181,48 +194,65 @@ def flux_second_derivative(
     nd = a.ndim
     S = lambda s: _sl(axis, nd, s)  # noqa: E731
     coord = np.asarray(coord, dtype=np.float64)
-    c = np.asarray(coef, dtype=np.float64)
-    c = c.reshape((1,) * (nd - c.ndim) + c.shape)
+
+    def align(x):
+        x = np.asarray(1.0 if x is None else x, dtype=np.float64)
+        return x.reshape((1,) * (nd - x.ndim) + x.shape)
+
+    c, s = align(coef), align(scale)
     varies = c.shape[axis] > 1
-    out = np.empty(a.shape, dtype=np.result_type(a.dtype, np.float64))
-    if periodic:
+    s_along = s.shape[axis] > 1
+    r = np.empty(a.shape, dtype=np.result_type(a.dtype, np.float64))
+    inner = r[S(slice(1, -1))]
+    if not varies and is_uniform(coord):
         h = coord[1] - coord[0]
-        flux = np.empty(a.shape, dtype=out.dtype)  # flux[i] at i+1/2
+        fac = c * s / (h * h)
+        np.add(a[S(slice(2, None))], a[S(slice(None, -2))], out=inner)
+        inner -= a[S(slice(1, -1))]
+        inner -= a[S(slice(1, -1))]
+        inner *= fac[S(slice(1, -1))] if s_along else fac
+        if periodic:
+            r[S(0)] = (a[S(1)] + a[S(-1)] - 2 * a[S(0)]) * fac[S(0)]
+            r[S(-1)] = (a[S(0)] + a[S(-2)] - 2 * a[S(-1)]) * fac[S(-1)]
+    elif periodic:
+        h = coord[1] - coord[0]
+        flux = np.empty(a.shape, dtype=r.dtype)  # flux[i] at i+1/2
         np.subtract(a[S(slice(1, None))], a[S(slice(None, -1))], out=flux[S(slice(None, -1))])
         flux[S(-1)] = a[S(0)] - a[S(-1)]
-        if varies:
-            chalf = np.empty(c.shape)
-            chalf[S(slice(None, -1))] = 0.5 * (c[S(slice(1, None))] + c[S(slice(None, -1))])
-            chalf[S(-1)] = 0.5 * (c[S(0)] + c[S(-1)])
-            flux *= chalf
-        else:
-            flux *= c
-        np.subtract(flux[S(slice(1, None))], flux[S(slice(None, -1))], out=out[S(slice(1, None))])
-        out[S(0)] = flux[S(0)] - flux[S(-1)]
-        out *= 1.0 / (h * h)
-        return out
-    flux = np.diff(a, axis=axis)  # a_{i+1} - a_i at i+1/2
-    flux *= 0.5 * (c[S(slice(1, None))] + c[S(slice(None, -1))]) if varies else c
-    flux *= _bshape(1.0 / np.diff(coord), axis, nd)
-    inner = out[S(slice(1, -1))]
-    np.subtract(flux[S(slice(1, None))], flux[S(slice(None, -1))], out=inner)
-    inner *= _bshape(2.0 / (coord[2:] - coord[:-2]), axis, nd)
-    del flux
-    # open edges: C a'' + C' a' with one-sided four-point a'' and three-point a', C' (second order)
-    for end, strip in ((0, slice(0, 4)), (-1, slice(-4, None))):
-        xs = coord[strip]
-        x0 = xs[0] if end == 0 else xs[-1]
-        w1 = fd_weights(x0, xs[:3] if end == 0 else xs[1:], 1)
-        w2 = fd_weights(x0, xs, 2)
-        pts = list(range(4)) if end == 0 else list(range(-4, 0))
-        p3 = pts[:3] if end == 0 else pts[1:]
-        a2 = sum(w * a[S(k)] for w, k in zip(w2, pts))
-        a1 = sum(w * a[S(k)] for w, k in zip(w1, p3))
-        if varies:
-            c1 = sum(w * c[S(k)] for w, k in zip(w1, p3))
-            out[S(end)] = c[S(end)] * a2 + c1 * a1
-        else:
-            out[S(end)] = c[S(0)] * a2 if c.ndim else c * a2
+        chalf = np.empty(c.shape)
+        chalf[S(slice(None, -1))] = 0.5 * (c[S(slice(1, None))] + c[S(slice(None, -1))])
+        chalf[S(-1)] = 0.5 * (c[S(0)] + c[S(-1)])
+        flux *= chalf
+        np.subtract(flux[S(slice(1, None))], flux[S(slice(None, -1))], out=r[S(slice(1, None))])
+        r[S(0)] = flux[S(0)] - flux[S(-1)]
+        r *= s / (h * h)
+    else:
+        flux = np.diff(a, axis=axis)  # a_{i+1} - a_i at i+1/2
+        ch = 0.5 * (c[S(slice(1, None))] + c[S(slice(None, -1))]) if varies else c
+        flux *= ch * _bshape(1.0 / np.diff(coord), axis, nd)
+        np.subtract(flux[S(slice(1, None))], flux[S(slice(None, -1))], out=inner)
+        del flux
+        w = _bshape(2.0 / (coord[2:] - coord[:-2]), axis, nd)
+        inner *= w * (s[S(slice(1, -1))] if s_along else s)
+    if not periodic:
+        # open edges: C a'' + C' a' with one-sided four-point a'' and three-point a', C' (second order)
+        for end, strip in ((0, slice(0, 4)), (-1, slice(-4, None))):
+            xs = coord[strip]
+            x0 = xs[0] if end == 0 else xs[-1]
+            pts = list(range(4)) if end == 0 else list(range(-4, 0))
+            p3 = pts[:3] if end == 0 else pts[1:]
+            w1 = fd_weights(x0, xs[:3] if end == 0 else xs[1:], 1)
+            w2 = fd_weights(x0, xs, 2)
+            a2 = sum(wk * a[S(k)] for wk, k in zip(w2, pts))
+            ce = c[S(end)] if varies else c[S(0)]
+            val = ce * a2
+            if varies:
+                a1 = sum(wk * a[S(k)] for wk, k in zip(w1, p3))
+                val = val + sum(wk * c[S(k)] for wk, k in zip(w1, p3)) * a1
+            r[S(end)] = val * (s[S(end)] if s_along else s[S(0)])
+    if out is None:
+        return r
+    out += r
     return out
 
 
@@ -243,19 +273,24 @@ def _safe_inverse(h: np.ndarray) -> np.ndarray:
     return inv
 
 
-def horizontal_gradient(a, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
-    """(∂a/∂x, ∂a/∂y) = ((1/hx) ∂a/∂ξ, (1/hy) ∂a/∂η).
+def horizontal_gradient(a, xi, eta, hx, hy, periodic_x=False, pole_rows=(), component="both"):
+    """(∂a/∂x, ∂a/∂y) = ((1/hx) ∂a/∂ξ, (1/hy) ∂a/∂η); ``component`` "x", "y" or "both".
 
     Pole rows (hx = 0) take the zonal component extrapolated linearly from the two nearest
     rows, the limit of the eastward component along each meridian (second order).
     """
-    gx = first_derivative(a, xi, -1, periodic_x)
-    gx *= _safe_inverse(np.asarray(hx, dtype=np.float64))
-    gy = first_derivative(a, eta, -2)
-    gy *= 1.0 / np.asarray(hy, dtype=np.float64)
-    if pole_rows:
-        _pole_fix(gx, pole_rows, eta)
-    return gx, gy
+    out = []
+    if component in ("x", "both"):
+        gx = first_derivative(a, xi, -1, periodic_x)
+        gx *= _safe_inverse(np.asarray(hx, dtype=np.float64))
+        if pole_rows:
+            _pole_fix(gx, pole_rows, eta)
+        out.append(gx)
+    if component in ("y", "both"):
+        gy = first_derivative(a, eta, -2)
+        gy *= 1.0 / np.asarray(hy, dtype=np.float64)
+        out.append(gy)
+    return tuple(out) if component == "both" else out[0]
 
 
 def horizontal_divergence(u, v, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
@@ -299,10 +334,9 @@ def horizontal_laplacian(a, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
     """
     hx = np.asarray(hx, dtype=np.float64)
     hy = np.asarray(hy, dtype=np.float64)
-    cx = hy * _safe_inverse(hx)
-    out = flux_second_derivative(a, xi, cx, -1, periodic_x)
-    out += flux_second_derivative(a, eta, hx / hy, -2)
-    out *= _safe_inverse(hx * hy)
+    inv_area = _safe_inverse(hx * hy)
+    out = flux_second_derivative(a, xi, hy * _safe_inverse(hx), -1, periodic_x, scale=inv_area)
+    flux_second_derivative(a, eta, hx / hy, -2, scale=inv_area, out=out)
     for j in pole_rows:
         # polar cap (finite volume): flux of ∇a through the cap edge at the half latitude
         # divided by the cap area 2π a² (1 − |sin φ_c|); second order, one value per row.
@@ -349,3 +383,58 @@ def velocity_gradient(u, v, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
         for comp in (ux, vx, uy, vy):
             _pole_fix(comp, pole_rows, eta)
     return ux, vx, uy, vy
+
+
+def blocked(kernel, arrays, metric: dict, n_out: int = 1, block_elements: int = 1 << 16):
+    """Evaluate a horizontal kernel block by block so that its passes stay in cache.
+
+    The kernels above make several numpy passes over their inputs; on large fields each pass
+    goes to main memory.  This driver calls ``kernel(*sub_arrays, **sub_metric)`` on one 2-D
+    slab at a time, in blocks of rows with a one-row halo, and copies the interior rows of
+    each result into preallocated outputs.  The blocks start and end on the true edges with
+    at least four rows, so one-sided edge formulas and pole rows are evaluated exactly as on
+    the whole field: the result equals one call on the whole array to round-off.
+
+    Parameters
+    ----------
+    kernel : callable
+        A horizontal kernel of this module (or any function of the same signature).
+    arrays : sequence of ndarray
+        Inputs with horizontal axes last; broadcast against each other.
+    metric : dict
+        ``xi, eta, hx, hy, periodic_x, pole_rows`` (see :meth:`qgforce.Grid.metric`).
+    n_out : int
+        Number of arrays the kernel returns.
+    block_elements : int
+        Target number of elements per block (the default, 64 Ki doubles = 512 KiB, fits L2).
+    """
+    shape = np.broadcast_shapes(*[np.shape(a) for a in arrays])
+    ny, nx = shape[-2:]
+    lead = shape[:-2]
+    total = int(np.prod(shape))
+    rows = min(ny, max(4, block_elements // max(nx, 1)))
+    if total <= 4 * block_elements:
+        return kernel(*arrays, **metric)
+    arrays = [np.broadcast_to(a, shape) for a in arrays]
+    outs = [np.empty(shape, dtype=np.float64) for _ in range(n_out)]
+    eta, hx, hy = metric["eta"], np.asarray(metric["hx"]), np.asarray(metric["hy"])
+    poles = tuple(metric.get("pole_rows", ()))
+    starts = list(range(0, ny, rows))
+    if ny - starts[-1] < 4 and len(starts) > 1:
+        starts.pop()
+    bounds = list(zip(starts, starts[1:] + [ny]))
+    for idx in np.ndindex(*lead):
+        for j0, j1 in bounds:
+            lo, hi = max(0, j0 - 1), min(ny, j1 + 1)
+            sub_metric = dict(metric)
+            sub_metric.update(
+                eta=eta[lo:hi],
+                hx=hx[lo:hi] if hx.ndim and hx.shape[-2] == ny else hx,
+                hy=hy[lo:hi] if hy.ndim and hy.shape[-2] == ny else hy,
+                pole_rows=tuple(j - lo for j in ((p % ny) for p in poles) if lo <= j < hi),
+            )
+            res = kernel(*[a[idx + (slice(lo, hi),)] for a in arrays], **sub_metric)
+            res = (res,) if n_out == 1 else res
+            for o, r in zip(outs, res):
+                o[idx + (slice(j0, j1),)] = r[..., j0 - lo : j1 - lo, :]
+    return outs[0] if n_out == 1 else tuple(outs)

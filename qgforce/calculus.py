@@ -25,6 +25,8 @@ NaN in part of a field stays local: a result is NaN only where its stencil touch
 
 from __future__ import annotations
 
+from functools import partial
+
 import numpy as np
 import xarray as xr
 
@@ -99,7 +101,7 @@ def apply_horizontal(kernel, *arrays: xr.DataArray, grid: Grid, n_out: int = 1):
     metric = grid.metric()
 
     def run(*xs):
-        return kernel(*xs, **metric)
+        return K.blocked(kernel, xs, metric, n_out)
 
     return xr.apply_ufunc(
         run,
@@ -165,14 +167,14 @@ def ddx(da: xr.DataArray, grid: Grid | None = None) -> xr.DataArray:
     True
     """
     g = _grid(da, grid)
-    out = apply_horizontal(lambda a, **m: K.horizontal_gradient(a, **m)[0], da, grid=g)
+    out = apply_horizontal(partial(K.horizontal_gradient, component="x"), da, grid=g)
     return _label(out, _name(da, "ddx"), derived_units(da, length=-1), f"eastward derivative of {da.name}")
 
 
 def ddy(da: xr.DataArray, grid: Grid | None = None) -> xr.DataArray:
     """∂a/∂y [units m-1]: (1/a) ∂a/∂φ on the sphere, m ∂a/∂Y on projected grids."""
     g = _grid(da, grid)
-    out = apply_horizontal(lambda a, **m: K.horizontal_gradient(a, **m)[1], da, grid=g)
+    out = apply_horizontal(partial(K.horizontal_gradient, component="y"), da, grid=g)
     return _label(out, _name(da, "ddy"), derived_units(da, length=-1), f"northward derivative of {da.name}")
 
 

@@ -223,3 +223,24 @@ def test_errors():
         Cc.ddp(xr.DataArray(np.zeros(2), coords={"level": [1e5, 9e4]}, dims="level", name="t"))
     with pytest.raises(GridError, match="no 'level' dimension"):
         Cc.ddp(da)
+
+
+@pytest.mark.parametrize("glob", [False, True])
+def test_blocked_evaluation_identical_to_whole_field(glob):
+    # the cache-blocking driver must reproduce the single-call kernels to round-off, edges and poles included
+    from qgforce import _stencils as KS
+
+    da, _ = harmonic(32, glob=glob)
+    a = np.stack([da.values * k for k in (1.0, -2.0, 3.0)])
+    g = Grid.from_dataset(da)
+    m = g.metric()
+    for kern, args, n_out in [
+        (KS.horizontal_laplacian, (a,), 1),
+        (KS.horizontal_gradient, (a,), 2),
+        (KS.horizontal_curl, (a, 0.5 * a), 1),
+        (KS.velocity_gradient, (a, 0.5 * a), 4),
+    ]:
+        whole = kern(*args, **m)
+        block = KS.blocked(kern, args, m, n_out, block_elements=4 * a.shape[-1])
+        for w, b in zip(whole if n_out > 1 else (whole,), block if n_out > 1 else (block,)):
+            np.testing.assert_allclose(b, w, rtol=1e-13, atol=1e-13 * np.abs(w).max())
