@@ -26,11 +26,14 @@ _PRODUCT_DOT = re.compile(r"(?<=[A-Za-z0-9])\.(?=[A-Za-z])")
 _TRAILING_EXPONENT = re.compile(r"(?<![\w*^])([A-Za-z_]+)(-?\d+)(?![\w.])")
 # "deg C" / "degrees C" would otherwise read as degree * coulomb.
 _SPACED_CELSIUS = re.compile(r"\bdeg(?:ree)?s?\s+C\b")
+# "mb" is the millibar in meteorological files; pint alone would read millibarn.
+_MILLIBAR = re.compile(r"\bmb\b")
 
 
 def _cf_to_pint(text: str) -> str:
     """Rewrite a CF/UDUNITS unit string in pint's syntax (``m2 s-2`` -> ``m**2 s**-2``)."""
     text = _SPACED_CELSIUS.sub("degC", text)
+    text = _MILLIBAR.sub("mbar", text)
     text = _PRODUCT_DOT.sub(" ", text)
     return _TRAILING_EXPONENT.sub(r"\1**\2", text)
 
@@ -39,10 +42,8 @@ def _cf_to_pint(text: str) -> str:
 units = pint.UnitRegistry(preprocessors=[_cf_to_pint])
 
 # Spellings of the trade, as aliases of pint's own units (no new factors).
-# "C" is degrees Celsius in meteorological files (pint keeps "coulomb" spelled out);
-# "mb" is the millibar (pint alone would read millibarn).
+# "C" is degrees Celsius in meteorological files (pint keeps "coulomb" spelled out).
 units.define("@alias degree_Celsius = degrees_Celsius = degree_C = degrees_C = deg_C = C")
-units.define("@alias bar = mb")
 # Latitude/longitude units of CF (CF conventions 1.11, sections 4.1 and 4.2).
 units.define(
     "degree_north = degree = degrees_north = degree_N = degrees_N = degreeN = degreesN"
@@ -154,6 +155,8 @@ def to_si(da: xr.DataArray, target_units: str, *, name: str | None = None) -> xr
     attrs["units"] = target_units
     if source != target_units:
         attrs["qgforce_source_units"] = source
+    elif "qgforce_source_units" in da.attrs:  # already converted once: keep the provenance
+        attrs["qgforce_source_units"] = da.attrs["qgforce_source_units"]
     return xr.DataArray(xr.Variable(da.dims, data, attrs), coords=da.coords, name=da.name)
 
 
