@@ -33,6 +33,7 @@ __all__ = [
     "beta_parameter",
     "geostrophic_wind",
     "grid_relative_wind",
+    "earth_relative_wind",
     "velocity_gradient",
     "relative_vorticity",
     "absolute_vorticity",
@@ -221,6 +222,23 @@ def grid_relative_wind(u: xr.DataArray, v: xr.DataArray, grid: Grid | None = Non
     ug = (u * ca + v * sa).assign_attrs({**u.attrs, "wind_relative_to": "grid"})
     vg = (-u * sa + v * ca).assign_attrs({**v.attrs, "wind_relative_to": "grid"})
     return ug.transpose(*u.dims).rename(u.name), vg.transpose(*v.dims).rename(v.name)
+
+
+def earth_relative_wind(u: xr.DataArray, v: xr.DataArray, grid: Grid | None = None) -> tuple[xr.DataArray, xr.DataArray]:
+    """Rotate grid-relative vector components of a projected grid to east/north.
+
+    u_east = u cos α − v sin α, v_north = u sin α + v cos α (the inverse of
+    :func:`grid_relative_wind`).  Vectors not marked ``wind_relative_to="grid"`` and all lat–lon
+    vectors are returned unchanged.
+    """
+    g = _grid(u, grid)
+    if g.kind == "latlon" or u.attrs.get("wind_relative_to") != "grid":
+        return u, v
+    alpha = xr.DataArray(g.grid_x_angle, dims=g.dims)
+    ca, sa = np.cos(alpha), np.sin(alpha)
+    ue = (u * ca - v * sa).assign_attrs({**u.attrs, "wind_relative_to": "earth"})
+    vn = (u * sa + v * ca).assign_attrs({**v.attrs, "wind_relative_to": "earth"})
+    return ue.transpose(*u.dims).rename(u.name), vn.transpose(*v.dims).rename(v.name)
 
 
 def velocity_gradient(u: xr.DataArray, v: xr.DataArray, grid: Grid | None = None):

@@ -1,0 +1,921 @@
+"""The thin plotting layer: maps, vertical cross-sections and a summary figure of QG diagnostics.
+
+Everything here draws; nothing here computes a diagnostic.  Data work (sampling a field
+along a line, for instance) lives in the library (:mod:`qgforce.sections`) and is only called
+from here.  Matplotlib, and cartopy when it is used, are imported inside the functions, so
+``import qgforce`` (and ``import qgforce.plot``) never imports either.
+
+Functions
+---------
+:func:`map_field`
+    Filled map of a 2-D field with optional geopotential-height contours and thinned vectors.
+:func:`cross_section`
+    Pressure–distance section of a 3-D field along a great circle.
+:func:`summary_figure`
+    Multi-panel figure of the main forcing terms and ω for one time.
+:func:`save_figure`
+    Atomic write of a figure at a predictable pixel size.
+:func:`colour_limits`
+    The robust colour limits the maps and sections use (exposed so they can be checked and reused).
+
+Each drawing function takes ``ax=None`` (a new figure and axes are made when it is None) and
+returns a :class:`PlotArtists` holding what it drew.
+
+Style
+-----
+Signed fields use matplotlib's diverging ``"RdBu_r"`` colormap with limits symmetric about zero;
+fields of one sign use ``"viridis"``.  Contours are thin dark-grey lines with small inline labels;
+colour bars are horizontal under each map.  Cross-sections use a logarithmic pressure axis.
+
+Maps use cartopy when it is importable (a Lambert conformal projection centred on the data,
+or Plate Carrée for global or near-equatorial domains) and add coastlines only when the
+Natural Earth coastline shapefile is already on disk: a figure never triggers a download.
+Without cartopy (or with ``projection=False``) maps are drawn on plain longitude–latitude axes
+with degree labels.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import secrets
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from . import constants as C
+from . import sections
+from ._unitstr import parse as _parse_units
+from .errors import GridError, InputDataError, MissingVariableError, QGForceError
+
+__all__ = [
+    "PlotArtists",
+    "SUMMARY_FIELDS",
+    "SUMMARY_PANEL_LEVELS",
+    "SUMMARY_DEFAULT_LEVEL",
+    "CAUTION",
+    "colour_limits",
+    "map_field",
+    "cross_section",
+    "summary_figure",
+    "save_figure",
+]
+
+#: Fields shown by :func:`summary_figure` by default, in panel order (those present are drawn).
+SUMMARY_FIELDS = (
+    "temperature_advection",
+    "differential_vorticity_advection",
+    "thermal_advection_term",
+    "q_vector_forcing",
+    "frontogenesis",
+    "omega_total",
+)
+
+#: Pressure [Pa] at which :func:`summary_figure` shows a field by default.  Temperature
+#: advection and frontogenesis are lower-tropospheric signals (850 hPa); the forcing terms of
+#: the omega equation and ω itself are shown at mid-troposphere (500 hPa), where ω is usually
+#: largest (common practice).  Fields not listed use :data:`SUMMARY_DEFAULT_LEVEL`.
+SUMMARY_PANEL_LEVELS = {
+    "temperature_advection": 85000.0,
+    "frontogenesis": 85000.0,
+}
+
+#: Default pressure [Pa] of summary panels not listed in :data:`SUMMARY_PANEL_LEVELS`.
+SUMMARY_DEFAULT_LEVEL = 50000.0
+
+#: One-line caution printed at the foot of :func:`summary_figure`.
+CAUTION = (
+    "QG diagnostics of a balanced approximation; unreliable near the equator, in strongly diabatic "
+    "or mesoscale flow. Operational decisions rest with the responsible forecasting service."
+)
+
+_SIGNED_CMAP = "RdBu_r"
+_UNSIGNED_CMAP = "viridis"
+_LINE_COLOUR = "0.25"
+_TARGET_ARROWS = 22  # arrows across the larger horizontal dimension of a map
+_LAT_LON = ("latitude", "longitude")
+_PROJECTED = ("y", "x")
+_SECTION_TICKS_HPA = (1000, 925, 850, 700, 600, 500, 400, 300, 250, 200, 150, 100, 70, 50, 30, 20, 10, 5, 2, 1)
+
+
+@dataclass
+class PlotArtists:
+    """What a plotting function drew.
+
+    Attributes
+    ----------
+    ax : matplotlib.axes.Axes
+        The axes drawn on (a cartopy ``GeoAxes`` for projected maps).
+    mesh : matplotlib.collections.QuadMesh
+        The filled field (its ``norm`` holds the colour limits).
+    colorbar : matplotlib.colorbar.Colorbar
+    contours : matplotlib.contour.QuadContourSet or None
+    contour_labels : list of matplotlib.text.Text or None
+    quiver : matplotlib.quiver.Quiver or None
+    quiverkey : matplotlib.quiver.QuiverKey or None
+    coastlines : cartopy.mpl.feature_artist.FeatureArtist or None
+        None when cartopy is not used or the coastline data are not available offline.
+    section : xarray.DataArray or None
+        For :func:`cross_section`, the sampled field that was drawn.
+    """
+
+    ax: Any
+    mesh: Any = None
+    colorbar: Any = None
+    contours: Any = None
+    contour_labels: Any = None
+    quiver: Any = None
+    quiverkey: Any = None
+    coastlines: Any = None
+    section: Any = None
+
+
+# ---------------------------------------------------------------------- lazy imports
+def _pyplot():
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _cartopy_crs():
+    """``cartopy.crs`` when cartopy can be imported, else None."""
+    try:
+        import cartopy.crs as ccrs
+    except (ImportError, OSError):
+        return None
+    return ccrs
+
+
+def _is_geoaxes(ax) -> bool:
+    try:
+        from cartopy.mpl.geoaxes import GeoAxes
+    except (ImportError, OSError):
+        return False
+    return isinstance(ax, GeoAxes)
+
+
+# ---------------------------------------------------------------------- labels and limits
+_UNIT_TOKEN = re.compile(r"^([A-Za-z%]+|.*\))(?:\^|\*\*)?(-?\d+)$")
+_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+
+def _readable_units(units: str | None) -> str:
+    """CF/UDUNITS unit string with powers as superscripts: ``"K s-1"`` → ``"K s⁻¹"``.
+
+    A power after a closing parenthesis is raised too (``"K (100 km)-1"`` → ``"K (100 km)⁻¹"``); other
+    tokens are left as written; ``"1"`` (dimensionless) gives "".
+    """
+    if units is None:
+        return ""
+    units = str(units).strip()
+    if units in ("", "1"):
+        return ""
+    out = []
+    for tok in units.split():
+        m = _UNIT_TOKEN.match(tok)
+        out.append(m.group(1) + m.group(2).translate(_SUPERSCRIPT) if m else tok)
+    return " ".join(out)
+
+
+def _field_label(da, exponent: int = 0) -> str:
+    """``"long_name [units]"`` of a DataArray (name when it has no long_name).
+
+    With ``exponent`` k ≠ 0 the units read ``[10ᵏ units]``: the tick values are in multiples of 10ᵏ.
+    """
+    name = da.attrs.get("long_name") or (str(da.name).replace("_", " ") if da.name is not None else "field")
+    units = _readable_units(da.attrs.get("units"))
+    if exponent:
+        units = f"10{str(exponent).translate(_SUPERSCRIPT)} {units}".strip()
+    return f"{name} [{units}]" if units else name
+
+
+def _tick_exponent(vmin: float, vmax: float) -> int:
+    """Power of ten folded into a colour-bar label when ticks would need one (|v| < 0.01 or ≥ 10⁴)."""
+    big = max(abs(vmin), abs(vmax))
+    if big == 0.0 or 1e-2 <= big < 1e4:
+        return 0
+    return math.floor(math.log10(big))
+
+
+def _colour_bar(fig, mesh, ax, field, values, vmin, vmax, **kwargs):
+    """Colour bar with the label ``long_name [units]`` and any power of ten moved into the label."""
+    from matplotlib.ticker import FuncFormatter
+
+    cbar = fig.colorbar(mesh, ax=ax, extend=_extend(values, vmin, vmax), **kwargs)
+    k = _tick_exponent(vmin, vmax)
+    if k:
+        cbar.formatter = FuncFormatter(lambda v, _pos=None: f"{v / 10.0**k:.3g}")
+        cbar.update_ticks()
+    cbar.set_label(_field_label(field, k), fontsize=8)
+    cbar.ax.tick_params(labelsize=7)
+    return cbar
+
+
+def _format_time(value) -> str:
+    """A time coordinate value as ``YYYY-MM-DD HH:MM``."""
+    if isinstance(value, np.datetime64) or np.issubdtype(np.asarray(value).dtype, np.datetime64):
+        return str(np.datetime_as_string(np.asarray(value).astype("datetime64[m]"), unit="m")).replace("T", " ")
+    if hasattr(value, "strftime"):  # cftime and datetime objects
+        return value.strftime("%Y-%m-%d %H:%M")
+    return str(value)
+
+
+def _scalar_suffix(da) -> str:
+    """Level and time of a DataArray's scalar coordinates, for titles (e.g. ``"500 hPa, 2031-…"``)."""
+    parts = []
+    if "level" in da.coords and da["level"].ndim == 0:
+        parts.append(f"{float(da['level']) / 100.0:g} hPa")
+    if "time" in da.coords and da["time"].ndim == 0:
+        parts.append(_format_time(da["time"].values))
+    return ", ".join(parts)
+
+
+def _default_title(da) -> str:
+    name = da.attrs.get("long_name") or (str(da.name).replace("_", " ") if da.name is not None else "")
+    suffix = _scalar_suffix(da)
+    return f"{name} — {suffix}" if name and suffix else (name or suffix)
+
+
+def colour_limits(values, robust_percentile: float = 98, symmetric: bool | None = None) -> tuple[float, float, bool]:
+    """Robust colour limits of a field.
+
+    Parameters
+    ----------
+    values : array_like
+        The values to be coloured; NaN are ignored.
+    robust_percentile : float, optional
+        Percentile P in (50, 100] that sets the limits (100 gives the plain extremes).
+    symmetric : bool, optional
+        Zero-centred limits.  By default, True when the field has both signs.
+
+    Returns
+    -------
+    vmin, vmax : float
+    symmetric : bool
+        Whether the limits are the symmetric kind.
+
+    Raises
+    ------
+    InputDataError
+        If every value is NaN, or ``robust_percentile`` is outside (50, 100].
+
+    Notes
+    -----
+    Symmetric: ±v with v the P-th percentile of |values|.  Otherwise the (100 − P)-th and P-th
+    percentiles of the values.  Degenerate limits (a constant or all-zero field) are widened so
+    that vmin < vmax.  Percentile limits keep a few extreme points from washing out the colour
+    scale (common practice).
+    """
+    if not 50 < robust_percentile <= 100:
+        raise InputDataError(f"robust_percentile must lie in (50, 100]; found {robust_percentile!r}")
+    v = np.asarray(values, dtype=np.float64)
+    finite = v[np.isfinite(v)]
+    if finite.size == 0:
+        raise InputDataError("cannot choose colour limits: every value of the field is NaN")
+    if symmetric is None:
+        symmetric = bool(finite.min() < 0.0 < finite.max())
+    if symmetric:
+        vmax = float(np.percentile(np.abs(finite), robust_percentile))
+        if vmax == 0.0:
+            vmax = float(np.abs(finite).max()) or 1.0
+        return -vmax, vmax, True
+    vmin = float(np.percentile(finite, 100.0 - robust_percentile))
+    vmax = float(np.percentile(finite, robust_percentile))
+    if vmax <= vmin:
+        pad = abs(vmin) * 0.01 or 1.0
+        vmin, vmax = vmin - pad, vmax + pad
+    return vmin, vmax, False
+
+
+def _extend(values, vmin, vmax) -> str:
+    finite = np.asarray(values)[np.isfinite(values)]
+    below, above = bool((finite < vmin).any()), bool((finite > vmax).any())
+    return {(True, True): "both", (True, False): "min", (False, True): "max"}.get((below, above), "neither")
+
+
+# ---------------------------------------------------------------------- field checks
+def _horizontal_dims(da) -> tuple[str, str]:
+    dims = set(da.dims)
+    for pair in (_LAT_LON, _PROJECTED):
+        if set(pair) <= dims:
+            return pair
+    raise GridError(
+        f"{da.name or 'the field'!s} has no horizontal grid: expected dimensions ('latitude', 'longitude') "
+        f"or ('y', 'x'); found {tuple(da.dims)}"
+    )
+
+
+def _selection_hint(dim: str) -> str:
+    return ".sel(level=50000)" if dim == "level" else f".isel({dim}=0)"
+
+
+def _require_dims(da, allowed: tuple[str, ...], what: str):
+    """Raise GridError naming the extra dims of ``da`` if it has dims beyond ``allowed``."""
+    missing = [d for d in allowed if d not in da.dims]
+    if missing:
+        raise GridError(
+            f"{what} needs a field with dimensions {allowed}; {da.name or 'the field'!s} has {tuple(da.dims)} "
+            f"(missing {missing})"
+        )
+    extra = [d for d in da.dims if d not in allowed]
+    if extra:
+        sizes = ", ".join(f"{d}: {da.sizes[d]}" for d in extra)
+        raise GridError(
+            f"{what} needs a field with dimensions {allowed}; {da.name or 'the field'!s} also has "
+            f"{extra} ({sizes}). Select one value of each first, e.g. "
+            f"{''.join(_selection_hint(d) for d in extra)}"
+        )
+    return da.transpose(*allowed)
+
+
+def _map_field_2d(da, what: str):
+    """The 2-D (y, x) field, or a GridError naming the extra dims."""
+    pair = _horizontal_dims(da)
+    return _require_dims(da, pair, what)
+
+
+def _lonlat(da) -> tuple[np.ndarray, np.ndarray]:
+    """Longitudes and latitudes for drawing: 1-D on lat–lon grids, 2-D (unwrapped along x) else."""
+    if da.dims[-1] == "longitude":
+        return np.asarray(da["longitude"].values, float), np.asarray(da["latitude"].values, float)
+    if "latitude" not in da.coords or "longitude" not in da.coords:
+        raise GridError(
+            "a projected field (dims y, x) needs 2-D 'latitude' and 'longitude' coordinates to be mapped; "
+            "found none. Open the data with qgforce.open_dataset."
+        )
+    lon = np.asarray(da["longitude"].transpose("y", "x").values, float)
+    lat = np.asarray(da["latitude"].transpose("y", "x").values, float)
+    return np.unwrap(lon, period=360.0, axis=-1), lat
+
+
+# ---------------------------------------------------------------------- axes
+def _default_projection(ccrs, lon, lat):
+    """Lambert conformal centred on the data; Plate Carrée for global or near-equatorial domains."""
+    lon_min, lon_max = float(np.nanmin(lon)), float(np.nanmax(lon))
+    lat_min, lat_max = float(np.nanmin(lat)), float(np.nanmax(lat))
+    lon_c, lat_c = 0.5 * (lon_min + lon_max), 0.5 * (lat_min + lat_max)
+    lon_c = (lon_c + 180.0) % 360.0 - 180.0
+    if lon_max - lon_min >= 300.0 or lat_max - lat_min >= 100.0 or abs(lat_c) < 15.0:
+        return ccrs.PlateCarree(central_longitude=lon_c)
+    half = max((lat_max - lat_min) / 4.0, 1.0)
+    sign = 1.0 if lat_c > 0 else -1.0
+    parallels = sorted(sign * np.clip(sign * np.array([lat_c - half, lat_c + half]), 1.0, 89.0))
+    cutoff = lat_min - 5.0 if sign > 0 else lat_max + 5.0
+    return ccrs.LambertConformal(
+        central_longitude=lon_c, central_latitude=lat_c, standard_parallels=tuple(parallels), cutoff=cutoff
+    )
+
+
+def _map_axes(fig, position: tuple, lon, lat, projection):
+    """New map axes at ``position`` (subplot args): a GeoAxes unless cartopy is off or missing."""
+    ccrs = None if projection is False else _cartopy_crs()
+    if projection is not None and projection is not False and ccrs is None:
+        raise QGForceError(
+            f"projection={projection!r} needs cartopy, which cannot be imported; install the 'maps' extra "
+            f"(pip install 'qgforce[maps]') or pass projection=False for plain longitude-latitude axes"
+        )
+    if ccrs is None:
+        return fig.add_subplot(*position)
+    if projection is None:
+        projection = _default_projection(ccrs, lon, lat)
+    return fig.add_subplot(*position, projection=projection)
+
+
+def _coastline_resolution(preference: tuple[str, ...]) -> str | None:
+    """The first Natural Earth coastline resolution already on disk, or None (never downloads).
+
+    Looks where cartopy itself would (its configured downloader's ``pre_downloaded_path`` then
+    ``target_path``, i.e. ``cartopy.config['pre_existing_data_dir']`` and ``['data_dir']``).
+    """
+    try:
+        from cartopy import config
+        from cartopy.io import Downloader
+    except (ImportError, OSError):
+        return None
+    for res in preference:
+        fmt = {"config": config, "category": "physical", "name": "coastline", "resolution": res}
+        try:
+            dl = Downloader.from_config(("shapefiles", "natural_earth", res, "physical", "coastline"))
+            candidates = (dl.pre_downloaded_path(fmt), dl.target_path(fmt))
+        except (ValueError, KeyError, AttributeError, TypeError):  # a downloader we cannot query: no risk
+            return None
+        if any(p is not None and Path(p).exists() for p in candidates):
+            return res
+    return None
+
+
+def _degree_formatter(axis: str):
+    from matplotlib.ticker import FuncFormatter
+
+    def fmt(value, _pos=None):
+        if axis == "lon":
+            v = (value + 180.0) % 360.0 - 180.0
+            hemi = "" if v in (0.0, -180.0) else ("E" if v > 0 else "W")
+            return f"{abs(v):g}°{hemi}"
+        hemi = "" if value == 0 else ("N" if value > 0 else "S")
+        return f"{abs(value):g}°{hemi}"
+
+    return FuncFormatter(fmt)
+
+
+def _decorate_plain_map(ax, lat) -> None:
+    ax.set_xlabel("longitude")
+    ax.set_ylabel("latitude")
+    ax.xaxis.set_major_formatter(_degree_formatter("lon"))
+    ax.yaxis.set_major_formatter(_degree_formatter("lat"))
+    lat_c = float(np.nanmean(lat))
+    ax.set_aspect(1.0 / max(math.cos(math.radians(lat_c)), 0.2), adjustable="box")
+    ax.grid(True, linewidth=0.4, color="0.7", linestyle=":")
+
+
+# ---------------------------------------------------------------------- contours and vectors
+def _contour_display(da) -> tuple[np.ndarray, str, bool]:
+    """Values to contour, their display units, and whether they are a height in dam.
+
+    Geopotential [m2 s-2] is shown as geopotential height in decametres, Φ / (g · 10); a height
+    in metres as dam; anything else in its own units.
+    """
+    values = np.asarray(da.values, dtype=np.float64)
+    units = da.attrs.get("units", "")
+    try:
+        powers = _parse_units(units)
+    except ValueError:
+        powers = None
+    if powers == {"m": 2, "s": -2}:
+        return values / (C.GRAVITY * 10.0), "dam", True
+    if powers == {"m": 1}:
+        return values / 10.0, "dam", True
+    return values, _readable_units(units), False
+
+
+def _contour_levels(values, interval: float | None) -> np.ndarray:
+    from matplotlib.ticker import MaxNLocator
+
+    lo, hi = float(np.nanmin(values)), float(np.nanmax(values))
+    if interval is None:
+        return MaxNLocator(nbins=12).tick_values(lo, hi)
+    if not interval > 0:
+        raise InputDataError(f"contour_interval must be positive; found {interval!r}")
+    count = math.ceil(hi / interval) - math.floor(lo / interval) + 1
+    if count > 200:
+        raise InputDataError(
+            f"contour_interval={interval!r} gives {count} contours over the range {lo:g} to {hi:g} "
+            f"(in the displayed units); choose a larger interval"
+        )
+    return np.arange(math.floor(lo / interval), math.ceil(hi / interval) + 1) * interval
+
+
+def _draw_contours(ax, x, y, values, levels, transform_kw):
+    if not np.isfinite(values).any() or np.nanmin(values) == np.nanmax(values):
+        return None, None
+    cs = ax.contour(x, y, values, levels=levels, colors=_LINE_COLOUR, linewidths=0.7, **transform_kw)
+    labels = ax.clabel(cs, inline=True, fontsize=6, fmt="%g")
+    return cs, labels
+
+
+def _vector_stride(n: int, target: int = _TARGET_ARROWS) -> int:
+    """Stride s giving ceil(n / s) arrows closest to ``target`` (the larger s on ties)."""
+    best = min(range(1, n + 1), key=lambda s: (abs(math.ceil(n / s) - target), -s))
+    return best
+
+
+def _reference_length(speed) -> float:
+    """A round number (1, 2 or 5 × 10^k) not above the 90th percentile of the arrow lengths."""
+    finite = np.asarray(speed)[np.isfinite(speed)]
+    p90 = float(np.percentile(finite, 90)) if finite.size else 0.0
+    if p90 <= 0.0:
+        return 1.0
+    k = math.floor(math.log10(p90))
+    return max(m * 10.0**k for m in (1, 2, 5) if m * 10.0**k <= p90 * (1 + 1e-12))
+
+
+def _round_number(value: float) -> str:
+    """``5e-12`` as ``"5×10⁻¹²"``; ordinary magnitudes as ``%g``."""
+    if value == 0 or 1e-3 <= abs(value) < 1e4:
+        return f"{value:g}"
+    k = math.floor(math.log10(abs(value)))
+    return f"{value / 10.0**k:g}×10{str(k).translate(_SUPERSCRIPT)}"
+
+
+def _earth_relative(u, v):
+    """East/north components of a vector pair (rotation by :func:`qgforce.earth_relative_wind`)."""
+    if u.attrs.get("wind_relative_to") != "grid" or u.dims[-1] != "x":
+        return np.asarray(u.values, float), np.asarray(v.values, float)
+    from .kinematics import earth_relative_wind
+
+    ue, vn = earth_relative_wind(u, v)
+    return np.asarray(ue.values, float), np.asarray(vn.values, float)
+
+
+def _draw_vectors(ax, u, v, stride, geo: bool):
+    u = _map_field_2d(u, "vectors")
+    v = _map_field_2d(v, "vectors")
+    if u.shape != v.shape:
+        raise GridError(f"vector components must have the same shape; found {u.shape} and {v.shape}")
+    lon, lat = _lonlat(u)
+    ue, vn = _earth_relative(u, v)
+    if stride is None:
+        stride = _vector_stride(max(ue.shape))
+    if int(stride) != stride or stride < 1:
+        raise InputDataError(f"vector_stride must be a positive integer; found {stride!r}")
+    stride = int(stride)
+    lon2, lat2 = (np.meshgrid(lon, lat) if lon.ndim == 1 else (lon, lat))
+    sl = (slice(None, None, stride), slice(None, None, stride))
+    lon2, lat2, ue, vn = lon2[sl], lat2[sl], ue[sl], vn[sl]
+    speed = np.hypot(ue, vn)
+    if geo:
+        # East/north components are turned into map directions: in Plate Carrée a ground
+        # displacement (e, n) is (e / cos φ, n) in degrees; cartopy transforms that direction
+        # and the original length is restored.
+        ccrs = _cartopy_crs()
+        pc = ccrs.PlateCarree()
+        cosphi = np.maximum(np.cos(np.deg2rad(lat2)), 1e-6)
+        ut, vt = ax.projection.transform_vectors(pc, lon2, lat2, ue / cosphi, vn)
+        norm = np.hypot(ut, vt)
+        scale = np.divide(speed, norm, out=np.zeros_like(speed), where=norm > 0)
+        xy = ax.projection.transform_points(pc, lon2, lat2)
+        q = ax.quiver(xy[..., 0], xy[..., 1], ut * scale, vt * scale, angles="uv", transform=ax.projection,
+                      width=0.0025, color="0.1")
+    else:
+        q = ax.quiver(lon2, lat2, ue, vn, angles="uv", width=0.0025, color="0.1")
+    ref = _reference_length(speed)
+    units = _readable_units(u.attrs.get("units"))
+    key = ax.quiverkey(q, X=0.04, Y=0.04, U=ref, label=f"{_round_number(ref)} {units}".strip(), labelpos="E",
+                       coordinates="axes", fontproperties={"size": 7}, zorder=5)
+    key.text.set_bbox({"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.5})
+    return q, key
+
+
+# ---------------------------------------------------------------------- maps
+def _draw_map(ax, field, *, contours, contour_interval, vectors, vector_stride, robust_percentile, symmetric, cmap,
+              title, coastlines) -> PlotArtists:
+    fig = ax.figure
+    geo = _is_geoaxes(ax)
+    lon, lat = _lonlat(field)
+    values = np.asarray(field.values, dtype=np.float64)
+    vmin, vmax, signed = colour_limits(values, robust_percentile, symmetric)
+    from matplotlib.colors import Normalize
+
+    tkw = {"transform": _cartopy_crs().PlateCarree()} if geo else {}
+    mesh = ax.pcolormesh(lon, lat, values, cmap=cmap or (_SIGNED_CMAP if signed else _UNSIGNED_CMAP),
+                         norm=Normalize(vmin=vmin, vmax=vmax), shading="nearest", **tkw)
+    cbar = _colour_bar(fig, mesh, ax, field, values, vmin, vmax, orientation="horizontal", fraction=0.05,
+                       pad=0.06 if geo else 0.1)
+    art = PlotArtists(ax=ax, mesh=mesh, colorbar=cbar)
+    if contours is not None:
+        cfield = _map_field_2d(contours, "contours")
+        clon, clat = _lonlat(cfield)
+        cvalues, _, is_height = _contour_display(cfield)
+        interval = contour_interval if contour_interval is not None else (6.0 if is_height else None)
+        art.contours, art.contour_labels = _draw_contours(
+            ax, clon, clat, cvalues, _contour_levels(cvalues, interval), tkw)
+    if vectors is not None:
+        try:
+            u, v = vectors
+        except (TypeError, ValueError) as exc:
+            raise InputDataError("vectors must be a pair (u, v) of 2-D DataArrays") from exc
+        art.quiver, art.quiverkey = _draw_vectors(ax, u, v, vector_stride, geo)
+    if geo:
+        if coastlines:
+            global_map = lon.ndim == 1 and float(np.ptp(lon)) >= 300.0
+            res = _coastline_resolution(("110m", "50m", "10m") if global_map else ("50m", "110m", "10m"))
+            if res is not None:
+                art.coastlines = ax.coastlines(resolution=res, linewidth=0.6, color="0.15")
+        gl = ax.gridlines(draw_labels=True, linewidth=0.4, color="0.6", linestyle=":")
+        gl.top_labels = gl.right_labels = False
+        gl.xlabel_style = gl.ylabel_style = {"size": 7}
+    else:
+        _decorate_plain_map(ax, lat)
+    ax.set_title(title if title is not None else _default_title(field), fontsize=9)
+    return art
+
+
+def map_field(field, ax=None, *, contours=None, contour_interval=None, vectors=None, vector_stride=None,
+              robust_percentile=98, symmetric=None, cmap=None, title=None, projection=None,
+              coastlines=True) -> PlotArtists:
+    """Filled map of a 2-D field, optionally with geopotential-height contours and vectors.
+
+    Parameters
+    ----------
+    field : xarray.DataArray
+        2-D field on ``(latitude, longitude)`` or ``(y, x)`` (with 2-D ``latitude``/``longitude``
+        coordinates).  Select one level and time first, e.g. ``ds.temperature_advection.sel(level=85000)``.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on (a cartopy GeoAxes or plain axes).  A new figure is made when None.
+    contours : xarray.DataArray, optional
+        2-D field contoured over the colours.  Geopotential [m2 s-2] is shown as geopotential
+        height in decametres (Φ / g / 10), a height [m] in dam; other fields in their own units.
+    contour_interval : float, optional
+        Contour interval in the displayed units; 6 dam for heights, else about 12 round levels.
+    vectors : (xarray.DataArray, xarray.DataArray), optional
+        Vector components (u, v) on the field's grid, eastward/northward (or grid-relative
+        when ``u.attrs["wind_relative_to"] == "grid"``, rotated to east/north before drawing).
+    vector_stride : int, optional
+        Draw every n-th vector in each direction; by default about 22 arrows across the map.
+    robust_percentile : float, optional
+        Percentile for the colour limits (see :func:`colour_limits`).
+    symmetric : bool, optional
+        Zero-centred colour limits; by default when the field has both signs.
+    cmap : str or Colormap, optional
+        Default ``"RdBu_r"`` for signed fields, ``"viridis"`` otherwise.
+    title : str, optional
+        Default: the long name, level and time of the field.
+    projection : cartopy.crs.Projection or False, optional
+        Map projection of a new axes.  None: a Lambert conformal centred on the data (Plate
+        Carrée for global or near-equatorial data) when cartopy is importable, else plain axes.
+        False: plain longitude–latitude axes.  Ignored when ``ax`` is given.
+    coastlines : bool, optional
+        Add coastlines (cartopy only, and only if the Natural Earth shapefile is already on disk).
+
+    Returns
+    -------
+    PlotArtists
+        ``ax``, ``mesh``, ``colorbar`` and, when drawn, ``contours``, ``contour_labels``,
+        ``quiver``, ``quiverkey``, ``coastlines``.
+
+    Raises
+    ------
+    GridError
+        If a field is not 2-D on a horizontal grid (the message names the extra dimensions).
+    InputDataError
+        If the field is all NaN or an option is out of range.
+    QGForceError
+        If a cartopy projection is requested but cartopy cannot be imported.
+
+    Notes
+    -----
+    Colour limits: ±P-th percentile of |values| for signed fields, the (100 − P)-th and P-th
+    percentiles otherwise (:func:`colour_limits`); the colour bar is extended where values
+    exceed them.  Cells are centred on the grid points (``shading="nearest"``).
+    """
+    field = _map_field_2d(field, "map_field")
+    if ax is None:
+        fig = _pyplot().figure(figsize=(7.0, 5.5), layout="constrained")
+        lon, lat = _lonlat(field)
+        ax = _map_axes(fig, (1, 1, 1), lon, lat, projection)
+    return _draw_map(ax, field, contours=contours, contour_interval=contour_interval, vectors=vectors,
+                     vector_stride=vector_stride, robust_percentile=robust_percentile, symmetric=symmetric,
+                     cmap=cmap, title=title, coastlines=coastlines)
+
+
+# ---------------------------------------------------------------------- sections
+def _format_point(lat: float, lon: float) -> str:
+    lon = (lon + 180.0) % 360.0 - 180.0
+    return f"{abs(lat):.1f}°{'N' if lat >= 0 else 'S'} {abs(lon):.1f}°{'E' if lon >= 0 else 'W'}"
+
+
+def cross_section(field, start, end, ax=None, *, npoints=100, contours=None, contour_interval=None,
+                  robust_percentile=98, symmetric=None, cmap=None, title=None,
+                  log_pressure=True) -> PlotArtists:
+    """Vertical cross-section of a 3-D field along the great circle from ``start`` to ``end``.
+
+    Parameters
+    ----------
+    field : xarray.DataArray
+        Field on ``(level, latitude, longitude)`` or ``(level, y, x)``, level in Pa.
+    start, end : (float, float)
+        (latitude, longitude) of the ends of the section, degrees.
+    ax : matplotlib.axes.Axes, optional
+        Plain axes to draw on; a new figure is made when None.
+    npoints : int, optional
+        Sample points along the line (see :func:`qgforce.sections.sample_along_line`).
+    contours : xarray.DataArray, optional
+        Second 3-D field contoured over the colours (e.g. potential temperature); geopotential
+        is shown in dam.
+    contour_interval : float, optional
+        Contour interval in the displayed units; default about 12 round levels.
+    robust_percentile, symmetric, cmap, title
+        As for :func:`map_field`.
+    log_pressure : bool, optional
+        Logarithmic pressure axis (default), roughly proportional to height since
+        z ≈ H ln(p₀/p) with scale height H (hypsometric equation, Wallace & Hobbs 2006, eq. 3.29);
+        False for a linear axis.
+
+    Returns
+    -------
+    PlotArtists
+        ``ax``, ``mesh``, ``colorbar``, ``contours``, ``contour_labels`` and ``section`` (the
+        sampled DataArray with dims ``level``, ``distance``).
+
+    Raises
+    ------
+    GridError
+        If the field is not (level, y, x) (the message names any extra dimensions).
+
+    Notes
+    -----
+    Pressure is shown in hPa increasing downward (the surface at the bottom); the x-axis is the
+    distance along the arc in km, with the two end points labelled below it.
+    """
+    pair = _horizontal_dims(field)
+    field = _require_dims(field, ("level",) + pair, "cross_section")
+    section = sections.sample_along_line(field, start, end, npoints)
+    if ax is None:
+        _, ax = _pyplot().subplots(figsize=(8.0, 4.8), layout="constrained")
+    fig = ax.figure
+    p_hpa = np.asarray(section["level"].values, float) / 100.0
+    dist = np.asarray(section["distance"].values, float)
+    values = np.asarray(section.values, float)
+    vmin, vmax, signed = colour_limits(values, robust_percentile, symmetric)
+    from matplotlib.colors import Normalize
+    from matplotlib.ticker import FixedLocator, NullLocator, ScalarFormatter
+
+    mesh = ax.pcolormesh(dist, p_hpa, values, cmap=cmap or (_SIGNED_CMAP if signed else _UNSIGNED_CMAP),
+                         norm=Normalize(vmin=vmin, vmax=vmax), shading="nearest")
+    cbar = _colour_bar(fig, mesh, ax, field, values, vmin, vmax, orientation="vertical", fraction=0.05, pad=0.02)
+    art = PlotArtists(ax=ax, mesh=mesh, colorbar=cbar, section=section)
+    if contours is not None:
+        cpair = _horizontal_dims(contours)
+        csec = sections.sample_along_line(_require_dims(contours, ("level",) + cpair, "cross_section contours"),
+                                          start, end, npoints)
+        cvalues, _, _ = _contour_display(csec)
+        art.contours, art.contour_labels = _draw_contours(
+            ax, np.asarray(csec["distance"].values), np.asarray(csec["level"].values) / 100.0, cvalues,
+            _contour_levels(cvalues, contour_interval), {})
+    if log_pressure:
+        ax.set_yscale("log")
+    lo, hi = float(p_hpa.min()), float(p_hpa.max())
+    ax.set_ylim(hi, lo)
+    ticks = [t for t in _SECTION_TICKS_HPA if lo <= t <= hi]
+    if ticks:
+        ax.yaxis.set_major_locator(FixedLocator(ticks))
+    ax.yaxis.set_minor_locator(NullLocator())
+    ax.yaxis.set_major_formatter(ScalarFormatter())
+    ax.set_ylabel("pressure [hPa]")
+    ax.set_xlabel("distance along section [km]")
+    ax.set_xlim(dist[0], dist[-1])
+    lat, lon = section["latitude"].values, section["longitude"].values
+    for xfrac, i, ha in ((0.0, 0, "left"), (1.0, -1, "right")):
+        ax.annotate(_format_point(float(lat[i]), float(lon[i])), xy=(xfrac, 0), xycoords="axes fraction",
+                    xytext=(0, -26), textcoords="offset points", ha=ha, va="top", fontsize=7, color="0.3")
+    default = field.attrs.get("long_name") or (str(field.name).replace("_", " ") if field.name else "")
+    suffix = _format_time(field["time"].values) if "time" in field.coords and field["time"].ndim == 0 else ""
+    ax.set_title(title if title is not None else (f"{default} — {suffix}" if suffix else default), fontsize=9)
+    return art
+
+
+# ---------------------------------------------------------------------- summary
+def _is_motion(name: str) -> bool:
+    return name in ("omega", "w") or name.startswith(("omega_", "w_"))
+
+
+def _panel_level(name: str, level, omega_level) -> float:
+    """Pressure [Pa] of a summary panel; a requested value below 2000 is read as hPa (library convention)."""
+    chosen = omega_level if _is_motion(name) else level
+    if chosen is None:
+        return SUMMARY_PANEL_LEVELS.get(name, SUMMARY_DEFAULT_LEVEL)
+    return float(chosen) * 100.0 if float(chosen) < 2000.0 else float(chosen)
+
+
+def _at_level(da, p):
+    return da.sel(level=p, method="nearest") if "level" in da.dims else da
+
+
+def _select_time(results, time):
+    if "time" in results.dims:
+        return results.isel(time=0) if time is None else results.sel(time=time, method="nearest")
+    if time is not None and "time" not in results.coords:
+        raise InputDataError(
+            f"time={time!r} was requested but the results have no time coordinate; leave time=None"
+        )
+    return results
+
+
+def summary_figure(results, *, time=None, level=None, fields=None, omega_level=None, ncols=3, figsize=None,
+                   projection=None):
+    """Multi-panel figure of the main QG forcing terms and ω for one time.
+
+    Parameters
+    ----------
+    results : xarray.Dataset
+        Result dataset of the library (forcing terms, ω, optionally ``geopotential``,
+        ``q_vector_x``/``q_vector_y``).
+    time : optional
+        Time to show (nearest is taken); default the first time.
+    level : float, optional
+        Pressure [Pa, or hPa if below 2000] for every panel that is not ω or w; default per field
+        (:data:`SUMMARY_PANEL_LEVELS`: temperature advection and frontogenesis at 850 hPa,
+        everything else at :data:`SUMMARY_DEFAULT_LEVEL` = 500 hPa).  The nearest level present
+        is used.
+    fields : sequence of str, optional
+        Variables to show, in order; default those of :data:`SUMMARY_FIELDS` present.  Missing
+        names are skipped.
+    omega_level : float, optional
+        Pressure [Pa, or hPa if below 2000] of the ω and w panels (``omega``, ``w``, ``omega_*``,
+        ``w_*``); default 500 hPa.
+    ncols : int, optional
+        Panels per row.
+    figsize : (float, float), optional
+        Inches; default 4.3 × 4.0 per panel.
+    projection : cartopy.crs.Projection or False, optional
+        As for :func:`map_field`, shared by all panels.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Raises
+    ------
+    MissingVariableError
+        If none of the requested fields is in ``results``.
+
+    Notes
+    -----
+    Every panel gets geopotential-height contours at its own level when ``geopotential`` is
+    present; the ``q_vector_forcing`` panel also gets the Q-vectors.  The figure title gives the
+    valid time; the foot of the figure carries :data:`CAUTION`.
+    """
+    wanted = tuple(SUMMARY_FIELDS if fields is None else fields)
+    present = [n for n in wanted if n in results.data_vars]
+    if not present:
+        raise MissingVariableError(
+            f"summary_figure found none of the fields {list(wanted)} in the results; they contain "
+            f"{sorted(map(str, results.data_vars))}. Pass fields=[...] naming variables to show."
+        )
+    if int(ncols) != ncols or ncols < 1:
+        raise InputDataError(f"ncols must be a positive integer; found {ncols!r}")
+    ds = _select_time(results, time)
+    ncols = min(int(ncols), len(present))
+    nrows = math.ceil(len(present) / ncols)
+    if figsize is None:
+        figsize = (4.3 * ncols, 4.0 * nrows + 0.5)
+    plt = _pyplot()
+    fig = plt.figure(figsize=figsize, layout="constrained")
+    foot = min(0.35 / figsize[1], 0.2)
+    fig.get_layout_engine().set(rect=(0.0, foot, 1.0, 1.0 - foot))
+    first = _map_field_2d(_at_level(ds[present[0]], _panel_level(present[0], level, omega_level)), "summary_figure")
+    lon, lat = _lonlat(first)
+    ccrs = None if projection is False else _cartopy_crs()
+    if ccrs is not None and projection is None:
+        projection = _default_projection(ccrs, lon, lat)
+    for i, name in enumerate(present):
+        p = _panel_level(name, level, omega_level)
+        field = _map_field_2d(_at_level(ds[name], p), "summary_figure")
+        ax = _map_axes(fig, (nrows, ncols, i + 1), lon, lat, projection)
+        geop = _at_level(ds["geopotential"], p) if "geopotential" in ds.data_vars else None
+        vec = None
+        if name == "q_vector_forcing" and "q_vector_x" in ds.data_vars and "q_vector_y" in ds.data_vars:
+            vec = (_at_level(ds["q_vector_x"], p), _at_level(ds["q_vector_y"], p))
+        _draw_map(ax, field, contours=geop, contour_interval=None, vectors=vec, vector_stride=None,
+                  robust_percentile=98, symmetric=None, cmap=None,
+                  title=_default_title(field.drop_vars("time", errors="ignore")), coastlines=True)
+    when = _format_time(ds["time"].values) if "time" in ds.coords and ds["time"].ndim == 0 else None
+    fig.suptitle("QG forcing diagnostics" + (f", valid {when}" if when else ""), fontsize=11)
+    fig.text(0.5, foot * 0.45, CAUTION, ha="center", va="center", fontsize=7, style="italic", color="0.3")
+    return fig
+
+
+# ---------------------------------------------------------------------- output
+def save_figure(fig, path, dpi: float = 100) -> Path:
+    """Write a figure atomically at a predictable pixel size.
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+    path : str or os.PathLike
+        Target file; the format follows its suffix (``.png``, ``.pdf``, ``.svg``, …).
+    dpi : float, optional
+        Dots per inch.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
+
+    Notes
+    -----
+    The figure is saved to a uniquely named temporary file in the target's directory,
+    flushed to disk, then moved over the target with :func:`os.replace` (atomic on POSIX and
+    Windows within one file system), so a crash leaves either the old file or the new one,
+    never a truncated image; on error the temporary file is removed.  The image is saved with
+    the standard bounding box (never ``bbox_inches="tight"``, whatever the rcParams say), so a
+    raster image is exactly ``figsize × dpi`` pixels (rounded to whole pixels).
+    """
+    import matplotlib
+
+    path = Path(path)
+    fmt = path.suffix.lstrip(".").lower() or matplotlib.rcParams["savefig.format"]
+    directory = path.parent if str(path.parent) else Path(".")
+    while True:
+        tmp = directory / f".{path.name}.{secrets.token_hex(6)}.tmp"
+        try:
+            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)  # umask applies
+            break
+        except FileExistsError:
+            continue
+    try:
+        with os.fdopen(fd, "wb") as fh, matplotlib.rc_context({"savefig.bbox": "standard"}):
+            fig.savefig(fh, format=fmt, dpi=dpi)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+    return path
