@@ -89,7 +89,7 @@ def _edge_weights(c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return lo, hi  # hi applies to points (-3, -2, -1)
 
 
-def first_derivative(a: np.ndarray, coord: np.ndarray, axis: int, periodic: bool = False) -> np.ndarray:
+def first_derivative(a: np.ndarray, coord: np.ndarray, axis: int, periodic: bool = False, scale=None) -> np.ndarray:
     """Second-order first derivative ∂a/∂c along ``axis``.
 
     Parameters
@@ -102,11 +102,14 @@ def first_derivative(a: np.ndarray, coord: np.ndarray, axis: int, periodic: bool
         Axis of ``a`` to differentiate along.
     periodic : bool
         Wrap around (the spacing must then be uniform; the period is ``n`` spacings).
+    scale : array_like, optional
+        A factor broadcastable to ``a`` multiplying the result (folded into the weights: no
+        extra pass).  It must not vary along ``axis``.
 
     Returns
     -------
     ndarray
-        ∂a/∂c, same shape as ``a``.
+        ∂a/∂c (times ``scale``), same shape as ``a``.
 
     Notes
     -----
@@ -121,29 +124,34 @@ def first_derivative(a: np.ndarray, coord: np.ndarray, axis: int, periodic: bool
     out = np.empty(a.shape, dtype=np.result_type(a.dtype, np.float64))
     nd = a.ndim
     S = lambda s: _sl(axis, nd, s)  # noqa: E731
+    s = np.asarray(1.0 if scale is None else scale, dtype=np.float64)
+    s = s.reshape((1,) * (nd - s.ndim) + s.shape)
+    if s.shape[axis] != 1:
+        raise ValueError("scale must not vary along the differentiated axis")
     if is_uniform(coord):
         h = coord[1] - coord[0]
         np.subtract(a[S(slice(2, None))], a[S(slice(None, -2))], out=out[S(slice(1, -1))])
-        out[S(slice(1, -1))] *= 1.0 / (2.0 * h)
+        out[S(slice(1, -1))] *= s * (1.0 / (2.0 * h))
         if periodic:
-            out[S(0)] = (a[S(1)] - a[S(-1)]) / (2.0 * h)
-            out[S(-1)] = (a[S(0)] - a[S(-2)]) / (2.0 * h)
+            out[S(0)] = (a[S(1)] - a[S(-1)]) * (s[S(0)] / (2.0 * h))
+            out[S(-1)] = (a[S(0)] - a[S(-2)]) * (s[S(0)] / (2.0 * h))
             return out
     else:
         if periodic:
             raise GridError("a periodic axis must have uniform spacing; found a non-uniform coordinate")
         hm = coord[1:-1] - coord[:-2]
         hp = coord[2:] - coord[1:-1]
-        wm = _bshape(-hp / (hm * (hm + hp)), axis, nd)
-        w0 = _bshape((hp - hm) / (hm * hp), axis, nd)
-        wp = _bshape(hm / (hp * (hm + hp)), axis, nd)
+        wm = _bshape(-hp / (hm * (hm + hp)), axis, nd) * s
+        w0 = _bshape((hp - hm) / (hm * hp), axis, nd) * s
+        wp = _bshape(hm / (hp * (hm + hp)), axis, nd) * s
         inner = out[S(slice(1, -1))]
         np.multiply(a[S(slice(None, -2))], wm, out=inner)
         inner += a[S(slice(1, -1))] * w0
         inner += a[S(slice(2, None))] * wp
     lo, hi = _edge_weights(coord)
-    out[S(0)] = lo[0] * a[S(0)] + lo[1] * a[S(1)] + lo[2] * a[S(2)]
-    out[S(-1)] = hi[0] * a[S(-3)] + hi[1] * a[S(-2)] + hi[2] * a[S(-1)]
+    s0 = s[S(0)]
+    out[S(0)] = (lo[0] * a[S(0)] + lo[1] * a[S(1)] + lo[2] * a[S(2)]) * s0
+    out[S(-1)] = (hi[0] * a[S(-3)] + hi[1] * a[S(-2)] + hi[2] * a[S(-1)]) * s0
     return out
 
 
@@ -280,15 +288,27 @@ def horizontal_gradient(a, xi, eta, hx, hy, periodic_x=False, pole_rows=(), comp
     rows, the limit of the eastward component along each meridian (second order).
     """
     out = []
+    hx = np.asarray(hx, dtype=np.float64)
+    hy = np.asarray(hy, dtype=np.float64)
     if component in ("x", "both"):
-        gx = first_derivative(a, xi, -1, periodic_x)
-        gx *= _safe_inverse(np.asarray(hx, dtype=np.float64))
+        ihx = _safe_inverse(hx)
+        if hx.shape[-1] == 1:
+            gx = first_derivative(a, xi, -1, periodic_x, scale=ihx)
+        else:
+            gx = first_derivative(a, xi, -1, periodic_x)
+            gx *= ihx
         if pole_rows:
             _pole_fix(gx, pole_rows, eta)
         out.append(gx)
     if component in ("y", "both"):
-        gy = first_derivative(a, eta, -2)
-        gy *= 1.0 / np.asarray(hy, dtype=np.float64)
+        if hy.ndim and hy.shape[-2] > 1 and hy.shape[-1] == 1:
+            gy = first_derivative(a, eta, -2)
+            gy *= 1.0 / hy
+        elif hy.shape[-1] > 1:
+            gy = first_derivative(a, eta, -2)
+            gy *= 1.0 / hy
+        else:
+            gy = first_derivative(a, eta, -2, scale=1.0 / hy)
         out.append(gy)
     return tuple(out) if component == "both" else out[0]
 

@@ -68,7 +68,7 @@ def _label(result: xr.DataArray, name: str, units: str, long_name: str, attrs=No
     return result
 
 
-def apply_horizontal(kernel, *arrays: xr.DataArray, grid: Grid, n_out: int = 1):
+def apply_horizontal(kernel, *arrays: xr.DataArray, grid: Grid, n_out: int = 1, blocked: bool = True):
     """Apply a raw horizontal kernel ``kernel(*numpy_arrays, **grid.metric())``.
 
     The single wrapper every horizontal operator goes through: it aligns the horizontal
@@ -84,6 +84,9 @@ def apply_horizontal(kernel, *arrays: xr.DataArray, grid: Grid, n_out: int = 1):
     grid : Grid
     n_out : int
         Number of outputs.
+    blocked : bool
+        Evaluate in cache-sized blocks (:func:`qgforce._stencils.blocked`); worth it for
+        kernels that make several passes, not for a single first derivative.
 
     Returns
     -------
@@ -101,7 +104,7 @@ def apply_horizontal(kernel, *arrays: xr.DataArray, grid: Grid, n_out: int = 1):
     metric = grid.metric()
 
     def run(*xs):
-        return K.blocked(kernel, xs, metric, n_out)
+        return K.blocked(kernel, xs, metric, n_out) if blocked else kernel(*xs, **metric)
 
     return xr.apply_ufunc(
         run,
@@ -167,14 +170,14 @@ def ddx(da: xr.DataArray, grid: Grid | None = None) -> xr.DataArray:
     True
     """
     g = _grid(da, grid)
-    out = apply_horizontal(partial(K.horizontal_gradient, component="x"), da, grid=g)
+    out = apply_horizontal(partial(K.horizontal_gradient, component="x"), da, grid=g, blocked=False)
     return _label(out, _name(da, "ddx"), derived_units(da, length=-1), f"eastward derivative of {da.name}")
 
 
 def ddy(da: xr.DataArray, grid: Grid | None = None) -> xr.DataArray:
     """∂a/∂y [units m-1]: (1/a) ∂a/∂φ on the sphere, m ∂a/∂Y on projected grids."""
     g = _grid(da, grid)
-    out = apply_horizontal(partial(K.horizontal_gradient, component="y"), da, grid=g)
+    out = apply_horizontal(partial(K.horizontal_gradient, component="y"), da, grid=g, blocked=False)
     return _label(out, _name(da, "ddy"), derived_units(da, length=-1), f"northward derivative of {da.name}")
 
 
