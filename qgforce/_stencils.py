@@ -345,18 +345,95 @@ def horizontal_curl(u, v, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
     return out
 
 
+def _meridional_operator(eta, hx_row, hy_row, scale_row) -> "scipy.sparse.csr_matrix":
+    """The η part of the compact Laplacian as an (ny × ny) sparse matrix, edge rows included.
+
+    Row j holds the weights of ∂η((hx/hy) ∂η ·) times ``scale_row[j]`` (= 1/(hx hy)): the flux form
+    in the interior and C a'' + C' a' with one-sided four- and three-point weights on the two
+    edge rows, exactly as :func:`flux_second_derivative`.
+    """
+    from scipy import sparse
+
+    ny = eta.size
+    c = hx_row / hy_row
+    ch = 0.5 * (c[1:] + c[:-1]) / np.diff(eta)
+    j = np.arange(1, ny - 1)
+    w = 2.0 / (eta[2:] - eta[:-2]) * scale_row[j]
+    up, dn = ch[j] * w, ch[j - 1] * w
+    rows, cols, vals = [j, j, j], [j + 1, j - 1, j], [up, dn, -(up + dn)]
+    for end, pts in ((0, np.arange(4)), (ny - 1, np.arange(ny - 4, ny))):
+        x0 = eta[end]
+        p3 = pts[:3] if end == 0 else pts[1:]
+        w2 = fd_weights(x0, eta[pts], 2)
+        w1 = fd_weights(x0, eta[p3], 1)
+        c1 = float(np.dot(w1, c[p3]))
+        rows += [np.full(4, end), np.full(3, end)]
+        cols += [pts, p3]
+        vals += [c[end] * w2 * scale_row[end], c1 * w1 * scale_row[end]]
+    m = sparse.coo_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(ny, ny)).tocsr()
+    m.sum_duplicates()
+    m.eliminate_zeros()  # a stored zero would turn a NaN neighbour into NaN
+    return m
+
+
+def _sparse_accumulate(m, x: np.ndarray, y: np.ndarray) -> None:
+    """y += m @ x for a CSR matrix and C-contiguous 2-D x, y, without a temporary.
+
+    Uses scipy's compiled CSR kernel when it is importable (it accumulates in place);
+    otherwise the public product, which allocates one temporary.
+    """
+    try:
+        from scipy.sparse._sparsetools import csr_matvecs
+    except ImportError:  # pragma: no cover - older/newer scipy layouts
+        y += m @ x
+        return
+    if not (x.flags.c_contiguous and y.flags.c_contiguous):
+        y += m @ x
+        return
+    csr_matvecs(m.shape[0], m.shape[1], x.shape[1], m.indptr, m.indices, m.data, x.ravel(), y.ravel())
+
+
 def horizontal_laplacian(a, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
     """∇²a = (1/(hx hy)) [∂ξ((hy/hx) ∂ξ a) + ∂η((hx/hy) ∂η a)], compact flux form.
 
     This is the horizontal part of the QG operator in :mod:`qgforce.solver`, point for
-    point, so inverting and re-applying round-trips to round-off.  Pole rows: linear
-    extrapolation from the two nearest rows.
+    point, so inverting and re-applying round-trips to round-off.  Pole rows: the polar-cap
+    (finite-volume) value, the flux of ∇a through the cap edge over the cap area.
+
+    Notes
+    -----
+    When the metric depends on η only and ξ is uniform (lat–lon and Cartesian grids) the ξ part
+    is one pass of ``scipy.ndimage.correlate1d`` with (1, −2, 1) and the η part one sparse
+    (ny × ny) product per level, three passes over the field in all; otherwise the general
+    flux form of :func:`flux_second_derivative` is used.  Both give the same numbers to round-off.
     """
     hx = np.asarray(hx, dtype=np.float64)
     hy = np.asarray(hy, dtype=np.float64)
     inv_area = _safe_inverse(hx * hy)
-    out = flux_second_derivative(a, xi, hy * _safe_inverse(hx), -1, periodic_x, scale=inv_area)
-    flux_second_derivative(a, eta, hx / hy, -2, scale=inv_area, out=out)
+    ny, nx = a.shape[-2:]
+    row_metric = hx.shape[-1] == 1 and hy.shape[-1] == 1 and ny >= 4 and nx >= 4 and is_uniform(xi)
+    if row_metric:
+        from scipy import ndimage
+
+        out = np.empty(a.shape, dtype=np.float64)
+        h = xi[1] - xi[0]
+        xfac = (hy * _safe_inverse(hx) * inv_area) / (h * h)
+        mer = _meridional_operator(np.asarray(eta, dtype=np.float64), np.broadcast_to(hx[..., 0], (ny,)),
+                                   np.broadcast_to(hy[..., 0], (ny,)), np.broadcast_to(inv_area[..., 0], (ny,)))
+        flat_in = np.ascontiguousarray(a, dtype=np.float64).reshape((-1, ny, nx))
+        flat_out = out.reshape((-1, ny, nx))
+        mode = "wrap" if periodic_x else "nearest"
+        for k in range(flat_in.shape[0]):  # one level at a time: its passes stay in the L3 cache
+            ak, rk = flat_in[k], flat_out[k]
+            ndimage.correlate1d(ak, [1.0, -2.0, 1.0], axis=-1, mode=mode, output=rk)
+            if not periodic_x:
+                rk[:, 0] = 2 * ak[:, 0] - 5 * ak[:, 1] + 4 * ak[:, 2] - ak[:, 3]
+                rk[:, -1] = 2 * ak[:, -1] - 5 * ak[:, -2] + 4 * ak[:, -3] - ak[:, -4]
+            rk *= xfac
+            _sparse_accumulate(mer, ak, rk)
+    else:
+        out = flux_second_derivative(a, xi, hy * _safe_inverse(hx), -1, periodic_x, scale=inv_area)
+        flux_second_derivative(a, eta, hx / hy, -2, scale=inv_area, out=out)
     for j in pole_rows:
         # polar cap (finite volume): flux of ∇a through the cap edge at the half latitude
         # divided by the cap area 2π a² (1 − |sin φ_c|); second order, one value per row.
