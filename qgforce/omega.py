@@ -1,0 +1,419 @@
+"""The public QG omega inversion: forcing terms in, ω per term and in total out, plus w and lift.
+
+:func:`invert_omega` solves
+
+    σ ∇²ω + f² ∂²ω/∂p² = RHS                                            (QG omega equation)
+
+for each additive forcing term of the chosen form separately and for their sum, so that the
+ascent can be attributed to its causes (the per-term ω sum to the total to round-off because
+the discrete operator is linear).  The right-hand sides come from :func:`qgforce.forcing.omega_rhs`
+(or are supplied); the operator and solvers from :mod:`qgforce.solver`.
+
+Forms (science.md): ``"traditional"`` (Sutcliffe–Holton: differential vorticity advection and
+the thermal-advection term) and ``"qvector"`` (Hoskins, Draghici & Davies 1978: −2∇·Q, its
+across- and along-isentrope parts Q_n and Q_s (Keyser, Reeder & Reed 1988), and the β term).
+
+Every extra dimension (time, member, …) is solved independently, one solve per step, lazily on
+dask input.
+
+References
+----------
+Holton, J. R. and G. J. Hakim, 2013: *An Introduction to Dynamic Meteorology*, 5th ed., §6.4.
+Hoskins, B. J., I. Draghici and H. C. Davies, 1978: A new look at the ω-equation. *QJRMS*, 104, 31–38.
+Keyser, D., M. J. Reeder and R. J. Reed, 1988: A generalization of Petterssen's frontogenesis
+function and its relation to the forcing of vertical motion. *Mon. Wea. Rev.*, 116, 762–780.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import xarray as xr
+
+from . import constants as C
+from .errors import EquatorialMaskWarning, GridError, InputDataError, MissingVariableError
+from .grid import Grid
+from .kinematics import resolve_coriolis
+from .solver import QGOperator, floor_sigma, solve
+from .thermo import mean_static_stability, omega_to_w, static_stability
+
+__all__ = ["invert_omega", "select_domain", "lift_over_time", "OMEGA_FORMS"]
+
+OMEGA_FORMS = ("traditional", "qvector")
+LEVEL = "level"
+DEFAULT_SIGMA_FLOOR = 1e-7  # m2 Pa-2 s-2; about 1/20 of the mid-tropospheric mean (science.md magnitudes)
+
+
+# ---------------------------------------------------------------------------- domain
+def _equator_rows(lat: np.ndarray, band: float) -> np.ndarray:
+    return np.abs(lat) < band
+
+
+def select_domain(ds: xr.Dataset, domain=None, equator_mask: float | None = C.DEFAULT_EQUATOR_MASK_DEGREES) -> xr.Dataset:
+    """Restrict a normalised dataset to the inversion domain.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Normalised dataset (or forcing dataset) on a lat–lon or projected grid.
+    domain : None, tuple or mapping
+        ``None``: the whole grid, except that on lat–lon grids reaching into the equatorial
+        band the largest contiguous latitude band outside it is kept (with a warning).
+        ``(lat_min, lat_max)``: a latitude band; ``(lat_min, lat_max, lon_min, lon_max)``: a box;
+        a mapping ``{"latitude": (a, b), "longitude": (c, d)}`` or ``{"y": ..., "x": ...}``.
+    equator_mask : float or None
+        Half-width of the equatorial band [degrees].
+
+    Returns
+    -------
+    xarray.Dataset
+
+    Warns
+    -----
+    EquatorialMaskWarning
+        When the selected domain reaches within the equatorial band.
+    """
+    band = float(equator_mask or 0.0)
+    if domain is None:
+        if "latitude" in ds.dims and band > 0:
+            lat = ds["latitude"].values
+            ok = ~_equator_rows(lat, band)
+            if not ok.all():
+                # the largest contiguous run of rows outside the band
+                runs, start = [], None
+                for j, good in enumerate(np.append(ok, False)):
+                    if good and start is None:
+                        start = j
+                    elif not good and start is not None:
+                        runs.append((start, j))
+                        start = None
+                if not runs:
+                    raise GridError(f"every latitude lies within {band}° of the equator: QG omega cannot be inverted here")
+                j0, j1 = max(runs, key=lambda r: r[1] - r[0])
+                warnings.warn(
+                    f"the grid reaches within {band}° of the equator; the inversion domain is restricted to "
+                    f"latitudes {lat[j0]:.2f}..{lat[j1 - 1]:.2f} (pass domain=... to choose)",
+                    EquatorialMaskWarning,
+                    stacklevel=2,
+                )
+                return ds.isel(latitude=slice(j0, j1))
+        return ds
+    if isinstance(domain, dict):
+        sel = {k: slice(*sorted(v)) for k, v in domain.items()}
+    else:
+        domain = tuple(domain)
+        ydim = "latitude" if "latitude" in ds.dims else "y"
+        xdim = "longitude" if "longitude" in ds.dims else "x"
+        if len(domain) == 2:
+            sel = {ydim: slice(*sorted(domain))}
+        elif len(domain) == 4:
+            sel = {ydim: slice(*sorted(domain[:2])), xdim: slice(*sorted(domain[2:]))}
+        else:
+            raise GridError(f"domain must be (lat_min, lat_max) or (lat_min, lat_max, lon_min, lon_max); found {domain!r}")
+    unknown = [k for k in sel if k not in ds.dims]
+    if unknown:
+        raise GridError(f"domain names dimension(s) {unknown} not in the data; dimensions are {tuple(ds.dims)}")
+    out = ds.sel(sel)
+    for k in sel:
+        if out.sizes[k] < 3:
+            raise GridError(f"the domain {domain!r} leaves {out.sizes[k]} point(s) along {k!r}; at least 3 are needed")
+    if "latitude" in out.coords and band > 0 and np.any(_equator_rows(np.asarray(out["latitude"].values), band)):
+        warnings.warn(
+            f"the inversion domain reaches within {band}° of the equator, where QG does not hold",
+            EquatorialMaskWarning,
+            stacklevel=2,
+        )
+    return out
+
+
+# ---------------------------------------------------------------------------- one step
+def _solve_step(rhs, sigma, boundary, *, op_kwargs, fsq, nterms, method, tol, maxiter, workers, fill, levels_hpa):
+    """Solve every term of one step.  rhs: (nterms, nz, ny, nx); sigma: (nz,) or (nz, ny, nx)."""
+    rhs = np.array(rhs, dtype=np.float64)
+    bad = ~np.isfinite(rhs[:, 1:-1, 1:-1, 1:-1] if not op_kwargs["periodic_x"] else rhs[:, 1:-1, 1:-1, :])
+    if bad.any():
+        if fill == "zero":
+            rhs = np.where(np.isfinite(rhs), rhs, 0.0)
+        else:
+            lev = np.flatnonzero(bad.any(axis=(0, 2, 3))) + 1
+            raise InputDataError(
+                f"the right-hand side has NaN on level(s) {', '.join(f'{levels_hpa[k]:g}' for k in lev)} hPa "
+                f"(below ground or masked); choose levels above the ground, a smaller domain, or fill='zero'"
+            )
+    op = QGOperator(sigma=np.asarray(sigma, dtype=np.float64), fsq=fsq, **op_kwargs)
+    out = np.empty((nterms + 1,) + rhs.shape[1:])
+    stats = np.empty((nterms + 1, 2))
+    for t in range(nterms):
+        out[t], info = solve(rhs[t], op, method=method, tol=tol, maxiter=maxiter, workers=workers)
+        stats[t] = (info.residual, info.iterations)
+    if boundary is not None and np.any(np.asarray(boundary) != 0):
+        out[nterms], info = solve(np.zeros(rhs.shape[1:]), op, method=method, boundary=np.asarray(boundary, dtype=np.float64),
+                                  tol=tol, maxiter=maxiter, workers=workers)
+        stats[nterms] = (0.0, info.iterations)
+    else:
+        out[nterms] = 0.0
+        stats[nterms] = (0.0, 0)
+    return out, stats
+
+
+# ---------------------------------------------------------------------------- public inversion
+def invert_omega(
+    ds: xr.Dataset,
+    *,
+    form: str = "qvector",
+    rhs: xr.Dataset | None = None,
+    sigma: str = "mean",
+    sigma_floor: float = DEFAULT_SIGMA_FLOOR,
+    coriolis: str = "f0",
+    f0_latitude: float | None = None,
+    smoothing=None,
+    domain=None,
+    boundary=None,
+    fill: str | None = None,
+    method: str = "auto",
+    tol: float = 1e-8,
+    maxiter: int = 200,
+    workers=None,
+    equator_mask: float | None = C.DEFAULT_EQUATOR_MASK_DEGREES,
+) -> xr.Dataset:
+    """Invert the QG omega equation term by term.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Normalised dataset (:func:`qgforce.open_dataset`) with ``temperature`` and
+        ``geopotential`` (for the forcing and σ), optionally ``omega`` (for boundary values)
+        and ``specific_humidity`` (for w).
+    form : {"qvector", "traditional"}
+        Which right-hand side: Q-vector terms (−2∇·Q, split into Q_n and Q_s, plus the β term)
+        or traditional terms (differential vorticity advection, thermal-advection term).
+    rhs : xarray.Dataset, optional
+        Precomputed right-hand sides from :func:`qgforce.forcing.omega_rhs`; computed from
+        ``ds`` when omitted.
+    sigma : {"mean", "local"}
+        ``"mean"``: the cos φ-weighted mean σ(p) of each level over the domain (textbook QG;
+        separable, direct solver).  ``"local"``: σ(x, y, p) floored at ``sigma_floor``
+        (Krylov solver; the count of floored points is reported in attrs).
+    sigma_floor : float
+        Minimum local σ [m2 Pa-2 s-2].
+    coriolis : {"f0", "local"}
+        f in the operator and in the forcing: one reference value (textbook) or f(φ).
+    f0_latitude : float, optional
+        Reference latitude; default the area-weighted mean latitude of the domain.
+    smoothing : optional
+        Smoothing of the inputs of the forcing terms (see :func:`qgforce.smoothing.smooth`).
+    domain : optional
+        See :func:`select_domain`.
+    boundary : None, "model" or xarray.DataArray
+        ω on the domain edges (top, bottom, lateral): 0 by default; ``"model"`` takes
+        ``ds["omega"]``; or a DataArray on the grid.  Its contribution is ``omega_boundary``.
+    fill : None or "zero"
+        What to do with NaN in the right-hand side (below-ground levels): refuse (default)
+        or replace by zero.
+    method : {"auto", "separable", "krylov"}
+        Solver (see :func:`qgforce.solver.solve`).
+    tol, maxiter : float, int
+        Krylov tolerance (relative residual) and iteration cap.
+    workers : int, optional
+        FFT threads.
+    equator_mask : float or None
+        Equatorial band half-width [degrees].
+
+    Returns
+    -------
+    xarray.Dataset
+        ``omega_<term>`` for every term of the form (and its partition), ``omega_boundary``
+        when boundary values are nonzero, ``omega_total`` [Pa s-1] (negative is ascent),
+        ``w_total`` [m s-1], ``solver_residual`` and ``solver_iterations`` per step, and the
+        ``static_stability`` used.  Attrs record every choice.
+
+    Raises
+    ------
+    InputDataError
+        NaN in the right-hand side without a fill policy; a level with non-positive mean σ.
+    ConvergenceError
+        When the Krylov solver does not converge.
+    GridError
+        Domain too small, unknown form or σ choice.
+    """
+    if form not in OMEGA_FORMS:
+        raise GridError(f"form must be one of {OMEGA_FORMS}; found {form!r}")
+    if sigma not in ("mean", "local"):
+        raise GridError(f"sigma must be 'mean' or 'local'; found {sigma!r}")
+    if fill not in (None, "zero"):
+        raise GridError(f"fill must be None or 'zero'; found {fill!r}")
+    if "temperature" not in ds:
+        raise MissingVariableError(
+            "the omega inversion needs temperature (for the static stability σ); pass names={'temperature': ...} to open_dataset"
+        )
+    from .forcing import omega_rhs
+
+    if rhs is None:
+        rhs = omega_rhs(ds, form=form, coriolis=coriolis, f0_latitude=f0_latitude, smoothing=smoothing, equator_mask=equator_mask)
+    sub = select_domain(xr.merge([ds, rhs], compat="override", join="inner"), domain, equator_mask)
+    grid = Grid.from_dataset(sub)
+    cor = resolve_coriolis(grid, coriolis, f0_latitude, equator_mask, warn=False)
+    levels = np.asarray(sub[LEVEL].values, dtype=np.float64)
+    if levels.size < 3:
+        raise GridError(f"the omega inversion needs at least 3 levels (5 for 3 interior); found {levels.size}")
+
+    terms = rhs.attrs.get("qgforce_terms", "").split()
+    partition = rhs.attrs.get("qgforce_partition", "")
+    sub_terms = partition.split("=")[1].split("+") if "=" in partition else []
+    names = terms + sub_terms
+    if not terms:
+        raise MissingVariableError("the right-hand-side dataset lacks attrs['qgforce_terms']; build it with qgforce.forcing.omega_rhs")
+
+    temperature = sub["temperature"]
+    attrs_sigma = {}
+    if sigma == "mean":
+        sig = mean_static_stability(temperature, grid)
+        attrs_sigma["qgforce_sigma"] = "cos(latitude)-weighted level mean" if grid.kind == "latlon" else "area-weighted level mean"
+        sig_core = [LEVEL]
+    else:
+        raw = static_stability(temperature)
+        # floored lazily; the count is part of the output
+        sig = np.maximum(raw, sigma_floor)
+        n_floored = (raw < sigma_floor).sum(dim=[LEVEL, *grid.dims])
+        attrs_sigma["qgforce_sigma"] = f"local, floored at {sigma_floor:g} m2 Pa-2 s-2"
+        sig_core = [LEVEL, *grid.dims]
+    if cor.kind == "f0":
+        fsq = cor.f0**2
+    else:
+        f2 = cor.f**2
+        fsq = f2[:, 0] if grid.kind == "latlon" else f2
+
+    # the total is solved on its own (not summed from the terms), so that the per-term sum
+    # reproducing it is a check of linearity rather than an identity
+    if "rhs_total" not in sub:
+        raise MissingVariableError("the right-hand-side dataset lacks 'rhs_total'; build it with qgforce.forcing.omega_rhs")
+    solved = names + ["rhs_total"]
+    stack = xr.concat([sub[n] for n in solved], dim="qgforce_term").assign_coords(qgforce_term=solved)
+    core = [LEVEL, *grid.dims]
+    if isinstance(boundary, str) and boundary == "model":
+        if "omega" not in sub:
+            raise MissingVariableError("boundary='model' needs the model's omega in the dataset (variable 'omega')")
+        bnd = sub["omega"]
+        battrs = "model omega on the domain edges"
+    elif isinstance(boundary, xr.DataArray):
+        bnd = boundary.sel({d: sub[d] for d in core if d in boundary.dims})
+        battrs = "supplied omega on the domain edges"
+    elif boundary is None:
+        bnd = xr.zeros_like(temperature)
+        battrs = "omega = 0 on every edge"
+    else:
+        raise GridError(f"boundary must be None, 'model' or a DataArray; found {type(boundary).__name__}")
+
+    op_kwargs = dict(levels=levels, xi=grid.xi, eta=grid.eta, hx=grid.hx, hy=grid.hy, periodic_x=grid.periodic_x)
+    levels_hpa = levels / 100.0
+    nterms = len(solved)
+
+    def step(r, s, b):
+        return _solve_step(r, s, b, op_kwargs=op_kwargs, fsq=fsq, nterms=nterms, method=method, tol=tol,
+                           maxiter=maxiter, workers=workers, fill=fill, levels_hpa=levels_hpa)
+
+    if stack.chunks is not None:
+        stack = stack.chunk({d: -1 for d in ["qgforce_term", *core]})
+    bare = [a.reset_coords(drop=True) for a in (stack, sig, bnd)]  # coords re-attached below (no compare)
+    sol, stats = xr.apply_ufunc(
+        step,
+        *bare,
+        input_core_dims=[["qgforce_term", *core], sig_core, core],
+        output_core_dims=[["qgforce_solution", *core], ["qgforce_solution", "qgforce_stat"]],
+        vectorize=True,
+        dask="parallelized",
+        output_dtypes=[np.float64, np.float64],
+        dask_gufunc_kwargs={"output_sizes": {"qgforce_solution": nterms + 1, "qgforce_stat": 2}, "allow_rechunk": True},
+    )
+    choice = {
+        "qgforce_form": form,
+        "qgforce_coriolis": cor.description,
+        "qgforce_smoothing": rhs.attrs.get("qgforce_smoothing", "none"),
+        "qgforce_boundary": battrs,
+        "qgforce_fill": fill or "refuse NaN",
+        "qgforce_solver_request": method,
+        "qgforce_solver_tolerance": tol,
+        **attrs_sigma,
+    }
+    out = xr.Dataset(attrs={"title": "QG omega by forcing term", **choice})
+    units = "Pa s-1"
+    def solution(k):
+        return sol.isel(qgforce_solution=k, drop=True).transpose(*temperature.dims).assign_coords(temperature.coords)
+
+    for k, n in enumerate(names):
+        out[f"omega_{n}"] = solution(k).assign_attrs(
+            units=units, long_name=f"QG omega forced by {sub[n].attrs.get('long_name', n)}",
+            standard_name="lagrangian_tendency_of_air_pressure")
+    omb = solution(nterms)
+    total = solution(nterms - 1)
+    if boundary is not None:
+        out["omega_boundary"] = omb.assign_attrs(units=units, long_name="QG omega from the boundary values")
+        total = total + omb
+    out["omega_total"] = total.assign_attrs(
+        units=units, long_name="QG omega (sum of all forcing terms)", standard_name="lagrangian_tendency_of_air_pressure",
+        qgforce_terms=" ".join(terms) + (" boundary" if boundary is not None else ""))
+    w = omega_to_w(out["omega_total"], temperature, sub.get("specific_humidity"))
+    out["w_total"] = w.assign_attrs(long_name="QG vertical velocity (hydrostatic, from omega_total)")
+    stats = stats.assign_coords({c: v for c, v in temperature.coords.items() if set(v.dims) <= set(stats.dims)})
+    resid = stats.isel(qgforce_stat=0, qgforce_solution=slice(0, nterms)).max("qgforce_solution")
+    iters = stats.isel(qgforce_stat=1).max("qgforce_solution")
+    out["solver_residual"] = resid.assign_attrs(units="1", long_name="largest relative residual |L omega - RHS| / |RHS| of the solves")
+    out["solver_iterations"] = iters.assign_attrs(units="1", long_name="largest Krylov iteration count of the solves (0: direct)")
+    out["static_stability"] = sig.assign_attrs(units="m2 Pa-2 s-2", long_name="static stability used by the operator")
+    if sigma == "local":
+        out["sigma_floored_points"] = n_floored.assign_attrs(units="1", long_name=f"points where sigma was floored at {sigma_floor:g}")
+    for c in ("qgforce_term", "qgforce_solution", "qgforce_stat"):
+        if c in out.coords:
+            out = out.drop_vars(c)
+    return out
+
+
+# ---------------------------------------------------------------------------- lift
+def lift_over_time(field: xr.DataArray, hours: float, temperature: xr.DataArray | None = None,
+                   specific_humidity: xr.DataArray | None = None) -> xr.Dataset:
+    """Vertical displacement of air under a steady ω or w over a duration.
+
+    Parameters
+    ----------
+    field : xarray.DataArray
+        ω [Pa s-1] or w [m s-1] (recognised by its units).
+    hours : float
+        Duration [h].
+    temperature, specific_humidity : xarray.DataArray, optional
+        To convert between pressure and height displacement (hydrostatic, ρ = p/(R_d T_v));
+        without temperature only the displacement in the field's own coordinate is returned.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``lift_height`` [m] (positive upward) and ``lift_pressure`` [hPa] (negative upward: the
+        pressure change of the air), as far as they can be computed.
+
+    Notes
+    -----
+    A kinematic estimate: Δz = w Δt and Δp = ω Δt with the velocity held constant over the
+    duration (common practice: 10 cm s⁻¹ for 6 h lifts air about 2.2 km).  Horizontal motion
+    and the change of the velocity along the path are neglected.
+    """
+    if hours <= 0:
+        raise InputDataError(f"the duration must be positive; found {hours} h")
+    dt = float(hours) * C.SECONDS_PER_HOUR
+    units = field.attrs.get("units", "")
+    out = xr.Dataset(attrs={"qgforce_duration_hours": float(hours),
+                            "comment": "kinematic: steady vertical velocity, horizontal motion neglected"})
+    from .thermo import density
+
+    if units in ("Pa s-1", "Pa/s"):
+        out["lift_pressure"] = (field * dt / 100.0).assign_attrs(units="hPa", long_name=f"pressure change of air over {hours:g} h")
+        if temperature is not None:
+            rho = density(temperature, specific_humidity)
+            out["lift_height"] = (-field / (rho * C.GRAVITY) * dt).assign_attrs(units="m", long_name=f"vertical displacement over {hours:g} h")
+    elif units in ("m s-1", "m/s"):
+        out["lift_height"] = (field * dt).assign_attrs(units="m", long_name=f"vertical displacement over {hours:g} h")
+        if temperature is not None:
+            rho = density(temperature, specific_humidity)
+            out["lift_pressure"] = (-field * rho * C.GRAVITY * dt / 100.0).assign_attrs(units="hPa", long_name=f"pressure change of air over {hours:g} h")
+    else:
+        raise InputDataError(f"lift_over_time needs omega in 'Pa s-1' or w in 'm s-1'; found units {units!r}")
+    return out
