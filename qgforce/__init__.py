@@ -1,9 +1,20 @@
 """qgforce: quasi-geostrophic forcing diagnostics and the inverted QG omega equation.
 
 The public API, grouped as the data flows: reading → grid → calculus → diagnostics → solver → outputs.
+
+>>> import qgforce
+>>> ds = qgforce.open_dataset(qgforce.scenario.demo_path())          # doctest: +SKIP
+>>> terms = qgforce.forcing_terms(ds, smoothing="gaussian:100km")   # doctest: +SKIP
+>>> omega = qgforce.invert_omega(ds, form="qvector")                 # doctest: +SKIP
+
+Submodules not imported by name here: :mod:`qgforce.plot` (matplotlib, imported lazily),
+:mod:`qgforce.solver` (the raw numerical solvers), :mod:`qgforce.scenario` (the demo data),
+:mod:`qgforce.cases` and :mod:`qgforce.selfcheck` (analytic checks).
 """
 
 __version__ = "0.1.0"
+
+from . import cases, scenario, selfcheck, solver
 
 from .calculus import d2dp2, ddp, ddx, ddy, divergence, gradient, laplacian, vorticity
 from .errors import (
@@ -17,7 +28,22 @@ from .errors import (
     QGForceWarning,
     UnitsError,
 )
+from .forcing import (
+    beta_term,
+    differential_vorticity_advection,
+    forcing_terms,
+    frontogenesis,
+    layer_differential_vorticity_advection,
+    layer_temperature_advection,
+    omega_rhs,
+    q_vectors,
+    temperature_advection,
+    thermal_advection_term,
+    to_display_units,
+    vorticity_advection,
+)
 from .grid import Grid
+from .io import check_values, normalize, open_dataset, require
 from .kinematics import (
     absolute_vorticity,
     advection,
@@ -26,11 +52,15 @@ from .kinematics import (
     deformation,
     geostrophic_vorticity,
     geostrophic_wind,
+    earth_relative_wind,
     grid_relative_wind,
     horizontal_divergence,
     relative_vorticity,
     velocity_gradient,
 )
+from .omega import invert_omega, lift_over_time, select_domain
+from .selfcheck import run_selfcheck
+from .smoothing import five_point, gaussian, nine_point, smooth
 from .thermo import (
     density,
     mean_static_stability,
@@ -43,6 +73,11 @@ from .thermo import (
 
 __all__ = [
     "__version__",
+    # reading model output
+    "open_dataset",
+    "normalize",
+    "require",
+    "check_values",
     # grid and calculus
     "Grid",
     "ddx",
@@ -66,6 +101,7 @@ __all__ = [
     "beta_parameter",
     "geostrophic_wind",
     "grid_relative_wind",
+    "earth_relative_wind",
     "velocity_gradient",
     "relative_vorticity",
     "absolute_vorticity",
@@ -73,6 +109,34 @@ __all__ = [
     "horizontal_divergence",
     "deformation",
     "advection",
+    # smoothing
+    "smooth",
+    "gaussian",
+    "five_point",
+    "nine_point",
+    # QG forcing terms
+    "temperature_advection",
+    "layer_temperature_advection",
+    "vorticity_advection",
+    "differential_vorticity_advection",
+    "layer_differential_vorticity_advection",
+    "thermal_advection_term",
+    "q_vectors",
+    "beta_term",
+    "frontogenesis",
+    "to_display_units",
+    "omega_rhs",
+    "forcing_terms",
+    # the omega inversion
+    "invert_omega",
+    "select_domain",
+    "lift_over_time",
+    # checks and data
+    "run_selfcheck",
+    "cases",
+    "selfcheck",
+    "scenario",
+    "solver",
     # errors and warnings
     "QGForceError",
     "MissingVariableError",
