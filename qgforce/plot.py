@@ -56,6 +56,7 @@ __all__ = [
     "SUMMARY_FIELDS",
     "SUMMARY_PANEL_LEVELS",
     "SUMMARY_DEFAULT_LEVEL",
+    "PANEL_TITLES",
     "CAUTION",
     "colour_limits",
     "map_field",
@@ -859,13 +860,30 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
         vec = None
         if name == "q_vector_forcing" and "q_vector_x" in ds.data_vars and "q_vector_y" in ds.data_vars:
             vec = (_at_level(ds["q_vector_x"], p), _at_level(ds["q_vector_y"], p))
-        _draw_map(ax, field, contours=geop, contour_interval=None, vectors=vec, vector_stride=None,
-                  robust_percentile=98, symmetric=None, cmap=None,
-                  title=_default_title(field.drop_vars("time", errors="ignore")), coastlines=True)
+        art = _draw_map(ax, field, contours=geop, contour_interval=None, vectors=vec, vector_stride=None,
+                        robust_percentile=98, symmetric=None, cmap=None,
+                        title=f"{PANEL_TITLES.get(name, name.replace('_', ' '))} — {p / 100.0:g} hPa", coastlines=True)
+        if art.colorbar is not None:  # the title names the field: the colour bar carries only its units
+            full = art.colorbar.ax.get_xlabel() or art.colorbar.ax.get_ylabel()
+            art.colorbar.set_label(full[full.rfind("["):] if "[" in full else full, fontsize=8)
     when = _format_time(ds["time"].values) if "time" in ds.coords and ds["time"].ndim == 0 else None
     fig.suptitle("QG forcing diagnostics" + (f", valid {when}" if when else ""), fontsize=11)
     fig.text(0.5, foot * 0.45, CAUTION, ha="center", va="center", fontsize=7, style="italic", color="0.3")
     return fig
+
+
+#: Short panel titles of the summary figure (the colour bars carry the units).
+PANEL_TITLES = {
+    "temperature_advection": "temperature advection",
+    "differential_vorticity_advection": "differential vorticity advection",
+    "thermal_advection_term": "thermal advection term",
+    "q_vector_forcing": "Q-vector forcing −2∇·Q",
+    "qn_forcing": "Q_n forcing",
+    "qs_forcing": "Q_s forcing",
+    "frontogenesis": "frontogenesis",
+    "omega_total": "QG ω (all terms)",
+    "w_total": "QG w (all terms)",
+}
 
 
 # ---------------------------------------------------------------------- output
