@@ -532,7 +532,7 @@ def test_summary_figure_panels_levels_time_and_caution(no_cartopy):
     titles = _panel_titles(fig)
     # the four default fields present, in the default order, at the documented default levels
     assert titles == ["temperature advection — 850 hPa", "differential vorticity advection — 500 hPa",
-                      "q vector forcing — 500 hPa", "omega total — 500 hPa"]
+                      "Q-vector forcing −2∇·Q — 500 hPa", "QG ω (all terms) — 500 hPa"]  # plot.PANEL_TITLES
     assert "2031-03-04 06:00" in fig._suptitle.get_text()  # first time by default
     assert plot.CAUTION in [t.get_text() for t in fig.texts]
     maps = [ax for ax in fig.axes if ax.get_title()]

@@ -1,0 +1,630 @@
+"""The ``qgforce`` command line (also ``python -m qgforce``).
+
+Subcommands::
+
+    qgforce demo      [--output-dir DIR] [--overwrite] [--quiet]
+    qgforce inspect   FILE... [--names canonical=name,...]
+    qgforce compute   FILE... -o OUT.nc [--fields ...] [--levels ...] [--times ...] [--region ...]
+                      [--form ...] [--smoothing ...] [--coriolis ...] [--f0-latitude ...] [--no-omega]
+                      [--dtype ...] [--overwrite] [--names ...] [--quiet]
+    qgforce maps      FILE... [--output-dir DIR] [--fields ...] [--levels ...] [--times ...]
+                      [--summary/--no-summary] [--dpi N] [--width-px N] [--projection auto|plain]
+                      [--overwrite] [--quiet] (+ the computing options of compute)
+    qgforce selfcheck [--quick]
+
+Every subcommand takes ``--config FILE``: a TOML file whose table named like the subcommand
+(``[compute]``, ``[maps]``, ...) and whose shared ``[defaults]`` table hold any of its options
+(keys spelled like the long option, ``-`` or ``_``; paths relative to the file's directory);
+command-line flags override the file, ``[compute]`` overrides ``[defaults]``.
+
+Exit status: 0 on success; 2 for a user error (bad path, unreadable file, missing variable, bad
+option value, existing output without ``--overwrite``), reported as one line
+``qgforce: error: ...`` on standard error with nothing written; 1 when the self-check fails;
+130 when interrupted.  The work itself lives in :mod:`qgforce.workflow`; this module only parses,
+checks and prints.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import re
+import shlex
+import sys
+import time
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+from . import __version__
+from .errors import InputDataError, QGForceError
+
+__all__ = ["main", "build_parser", "COMMANDS"]
+
+_PROG = "qgforce"
+
+
+# ============================================================================ options
+@dataclass(frozen=True)
+class _Option:
+    """One option: its flags, help, how a value is read, and its built-in default."""
+
+    dest: str
+    flags: tuple
+    help: str
+    kind: str  # files | path | fields | levels | times | region | choice | float | int | bool | flag | names | text
+    default: object = None
+    choices: tuple = ()
+    metavar: str | None = None
+
+
+_OPTIONS = {o.dest: o for o in (
+    _Option("files", (), "input NetCDF files (globs allowed, e.g. 'run/*.nc')", "files", metavar="FILE"),
+    _Option("output", ("-o", "--output"), "the NetCDF file to write (required)", "path", metavar="OUT.nc"),
+    _Option("output_dir", ("--output-dir",), "directory of the output files", "path", metavar="DIR"),
+    _Option("fields", ("--fields",),
+            "'all' or comma-separated result names (forcing terms such as q_vector_forcing, "
+            "temperature_advection, frontogenesis; omega outputs such as omega_total, omega_qn_forcing)",
+            "fields", default="all", metavar="all|NAME,..."),
+    _Option("levels", ("--levels",), "comma-separated pressure levels in hPa, each a level of the data",
+            "levels", metavar="850,500"),
+    _Option("times", ("--times",),
+            "comma-separated ISO times (2046-11-19T06, a date for the whole day) or ranges START/END; default all",
+            "times", metavar="T1,T2|START/END"),
+    _Option("region", ("--region",), "latitude-longitude box in degrees (the inversion domain for omega)",
+            "region", metavar="LAT0,LAT1,LON0,LON1"),
+    _Option("form", ("--form",), "omega form whose outputs get the plain names (omega_total, ...); "
+            "'both' adds the traditional form with suffixed names", "choice", default="qvector",
+            choices=("qvector", "traditional", "both")),
+    _Option("smoothing", ("--smoothing",), "smoothing of the input fields before any derivative: "
+            "gaussian:150km, five_point[:passes], nine_point[:passes] or none", "text", default="none",
+            metavar="SPEC"),
+    _Option("coriolis", ("--coriolis",), "f0: one reference Coriolis parameter (textbook QG); local: f(latitude)",
+            "choice", default="f0", choices=("f0", "local")),
+    _Option("f0_latitude", ("--f0-latitude",), "reference latitude of f0 in degrees (default: mean latitude "
+            "of the grid, or of the region)", "float", metavar="DEG"),
+    _Option("omega", ("--omega",), "invert the QG omega equation (--no-omega: forcing terms only)", "bool",
+            default=True),
+    _Option("dtype", ("--dtype",), "stored type of the data (computation is float64)", "choice",
+            default="float32", choices=("float32", "float64")),
+    _Option("overwrite", ("--overwrite",), "replace existing output files", "bool", default=False),
+    _Option("names", ("--names",), "variable names of the file, e.g. temperature=ta,geopotential=zg",
+            "names", metavar="CANONICAL=NAME,..."),
+    _Option("summary", ("--summary",), "also one summary figure per time", "bool", default=True),
+    _Option("dpi", ("--dpi",), "dots per inch of the PNG files", "float", default=100, metavar="N"),
+    _Option("width_px", ("--width-px",), "width of the PNG files in pixels (height keeps the aspect ratio)",
+            "int", metavar="N"),
+    _Option("projection", ("--projection",), "map axes: auto (cartopy when installed) or plain longitude-latitude "
+            "axes (much faster)", "choice", default="auto", choices=("auto", "plain")),
+    _Option("quick", ("--quick",), "two resolutions per case instead of three (faster)", "flag", default=False),
+    _Option("quiet", ("-q", "--quiet"), "no progress bar, summary or cautions (errors and warnings still shown)",
+            "flag", default=False),
+    _Option("config", ("--config",), "TOML file with options under [defaults] and [<subcommand>]", "path",
+            metavar="FILE"),
+)}
+
+_MAP_PATTERN_HELP = (
+    "PNG file names: {field}_{level}hPa_{YYYYmmddTHHMM}.png for each field, level and time, and "
+    "summary_{YYYYmmddTHHMM}.png for the summary figure of each time (without a time coordinate the "
+    "_{YYYYmmddTHHMM} part is left out), e.g. omega_total_500hPa_20461119T0600.png."
+)
+_CONFIG_HELP = (
+    "A --config TOML file may hold any option of the subcommand under [%(cmd)s] or [defaults] "
+    "(keys like the long options, e.g. levels = [850, 500], overwrite = true, files = ['a.nc']); "
+    "flags given here override it."
+)
+_EXIT_HELP = "Exit status: 0 success, 2 user error (one line on stderr, nothing written), 1 failed self-check."
+
+#: Subcommand -> (help line, description, options, per-command defaults, epilog).
+COMMANDS = {
+    "demo": (
+        "run the main job on the bundled demo data (NetCDF results, PNG maps, a summary)",
+        "Compute every forcing diagnostic and invert the QG omega equation in both forms for the bundled, "
+        "invented demo scenario; write one NetCDF file of results and PNG maps (a summary figure per time and "
+        "single maps at the time of the strongest ascent) to the output directory, then print what was computed, "
+        "where the strongest forced ascent is, which term dominates there, and the wall time. The demo replaces "
+        "its own previous outputs (a directory carrying its .qgforce-demo marker) and refuses any other existing, "
+        "non-empty directory unless --overwrite.",
+        ("output_dir", "overwrite", "quiet", "config"),
+        {"output_dir": "qgforce_demo_output"},
+        "",
+    ),
+    "inspect": (
+        "describe input files: grid, levels, times, variables, what can be computed",
+        "Show which grid (kind, shape, latitude/longitude range, spacing, periodicity), levels, times and "
+        "variables (canonical name <- name in the file, units in the file -> SI) were recognised, the "
+        "variables dropped, and which diagnostics can be computed (and why not otherwise).",
+        ("files", "names", "config"),
+        {},
+        "",
+    ),
+    "compute": (
+        "compute diagnostics to a CF-1.8 NetCDF file",
+        "Compute the chosen forcing diagnostics and omega outputs (or all) for the chosen levels, times and region "
+        "from one or many files, and write them to one compressed CF-1.8 NetCDF file (units, long_name, "
+        "standard_name where CF has one; history with the UTC time, the version and every parameter; source "
+        "listing the input files). The forcing terms are computed on the whole grid and cut to the region; omega "
+        "is inverted on the region. The file is written atomically and never over an existing file without "
+        "--overwrite.",
+        ("files", "output", "fields", "levels", "times", "region", "form", "smoothing", "coriolis",
+         "f0_latitude", "omega", "dtype", "overwrite", "names", "quiet", "config"),
+        {},
+        "",
+    ),
+    "maps": (
+        "draw PNG maps of chosen fields, levels and times",
+        "For each time, draw the chosen fields (forcing terms or omega outputs; what they need is computed) at the "
+        "chosen levels to PNG files with predictable names, and one summary figure per time. Default fields: "
+        "the summary fields; default level per field: 850 hPa for temperature advection and frontogenesis, "
+        "500 hPa otherwise. Geopotential-height contours are drawn on every map, Q-vectors on the Q-vector "
+        "forcing maps.",
+        ("files", "output_dir", "fields", "levels", "times", "region", "form", "smoothing", "coriolis",
+         "f0_latitude", "summary", "dpi", "width_px", "projection", "overwrite", "names", "quiet", "config"),
+        {"output_dir": "qgforce_maps", "fields": None},
+        _MAP_PATTERN_HELP,
+    ),
+    "selfcheck": (
+        "check the numerics against analytic cases; exit 1 if any case fails",
+        "Run the analytic cases (frontogenesis, Q-vectors, omega, calculus) at two or three resolutions and "
+        "print a table of case, source, error, observed order of convergence and pass/fail.",
+        ("quick", "quiet", "config"),
+        {},
+        "",
+    ),
+}
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse without its exit: a usage error becomes one ``qgforce: error:`` line."""
+
+    def error(self, message):
+        raise InputDataError(f"{message} (see '{self.prog} --help')")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of ``qgforce`` (every option defaults to None: "not given")."""
+    parser = _Parser(
+        prog=_PROG,
+        description="Quasi-geostrophic forcing diagnostics and the inverted QG omega equation for gridded "
+                    "model output on pressure levels.",
+        epilog=_EXIT_HELP,
+        allow_abbrev=False,
+    )
+    parser.add_argument("--version", action="version", version=f"qgforce {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="{" + ",".join(COMMANDS) + "}", parser_class=_Parser)
+    for name, (summary, description, dests, defaults, epilog) in COMMANDS.items():
+        cmd = sub.add_parser(
+            name, help=summary, description=description, allow_abbrev=False,
+            epilog=" ".join(t for t in (epilog, _CONFIG_HELP % {"cmd": name}, _EXIT_HELP) if t),
+        )
+        for dest in dests:
+            opt = _OPTIONS[dest]
+            default = defaults.get(dest, opt.default)
+            help_text = opt.help + (f" (default: {_show_default(default)})" if default not in (None, False) else "")
+            if opt.kind == "files":
+                cmd.add_argument("files", nargs="*", metavar=opt.metavar, help=help_text)
+            elif opt.kind == "bool":
+                cmd.add_argument(*opt.flags, dest=dest, action=argparse.BooleanOptionalAction, default=None,
+                                 help=help_text)
+            elif opt.kind == "flag":
+                cmd.add_argument(*opt.flags, dest=dest, action="store_true", default=None, help=help_text)
+            else:
+                metavar = opt.metavar or ("{" + ",".join(opt.choices) + "}" if opt.choices else None)
+                cmd.add_argument(*opt.flags, dest=dest, default=None, metavar=metavar, help=help_text)
+    return parser
+
+
+def _show_default(value) -> str:
+    if value is True:
+        return "on"
+    return str(value)
+
+
+# ============================================================================ reading option values
+def _fail(where: str, message: str):
+    raise InputDataError(f"{where}: {message}")
+
+
+def _text_list(value, where) -> list[str]:
+    """A comma-separated string or a TOML list as a list of stripped strings."""
+    if isinstance(value, str):
+        return [v.strip() for v in value.split(",") if v.strip()]
+    if isinstance(value, (list, tuple)):
+        out = []
+        for v in value:
+            if isinstance(v, (dict, list)):
+                _fail(where, f"expected a list of plain values, found {value!r}")
+            out.extend(_text_list(str(v), where))
+        return out
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return [str(value)]
+    _fail(where, f"expected a comma-separated string or a list, found {value!r}")
+
+
+def _number(text, where, kind=float):
+    if isinstance(text, bool):
+        _fail(where, f"expected a number, found {text!r}")
+    try:
+        value = kind(text) if kind is float else int(str(text).strip())
+    except (TypeError, ValueError):
+        _fail(where, f"expected {'a whole number' if kind is int else 'a number'}, found {text!r}")
+    if kind is float and not (value == value and abs(value) != float("inf")):
+        _fail(where, f"expected a finite number, found {text!r}")
+    return value
+
+
+def _convert(opt: _Option, value, where: str, base: Path | None):
+    """An option value (a command-line string or a TOML value) as the workflow expects it."""
+    kind = opt.kind
+    if kind in ("bool", "flag"):
+        if not isinstance(value, bool):
+            _fail(where, f"expected true or false, found {value!r}")
+        return value
+    if kind == "files":
+        items = [value] if isinstance(value, str) else value
+        if not isinstance(items, (list, tuple)) or not all(isinstance(v, str) for v in items):
+            _fail(where, f"expected a file name or a list of file names, found {value!r}")
+        return [_relative(v, base) for v in items]
+    if kind == "path":
+        if not isinstance(value, str) or not value.strip():
+            _fail(where, f"expected a path, found {value!r}")
+        return _relative(value, base)
+    if kind == "fields":
+        items = _text_list(value, where)
+        if not items:
+            _fail(where, "expected 'all' or one or more field names")
+        if "all" in items:
+            if items != ["all"]:
+                _fail(where, "'all' cannot be combined with field names")
+            return "all"
+        bad = [v for v in items if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*", v)]
+        if bad:
+            _fail(where, f"not a field name: {', '.join(bad)}")
+        return items
+    if kind == "levels":
+        items = _text_list(value, where)
+        if not items:
+            _fail(where, "expected one or more pressures in hPa, e.g. 850,500")
+        levels = [_number(v, where) for v in items]
+        bad = [v for v in levels if not 0.0 < v < 2000.0]
+        if bad:
+            _fail(where, f"pressures are given in hPa, between 0 and 2000; found {', '.join(f'{v:g}' for v in bad)}")
+        return levels
+    if kind == "times":
+        items = _text_list(value, where)
+        if not items:
+            _fail(where, "expected ISO times or ranges START/END")
+        return items
+    if kind == "region":
+        items = _text_list(value, where)
+        if len(items) != 4:
+            _fail(where, f"expected four numbers LAT0,LAT1,LON0,LON1 (degrees), found {value!r}")
+        box = [_number(v, where) for v in items]
+        if not (-90.0 <= box[0] < box[1] <= 90.0):
+            _fail(where, f"latitudes must satisfy -90 <= LAT0 < LAT1 <= 90; found {box[0]:g}, {box[1]:g}")
+        return box
+    if kind == "choice":
+        text = str(value).strip().lower() if isinstance(value, str) else value
+        if text not in opt.choices:
+            _fail(where, f"expected one of {', '.join(opt.choices)}, found {value!r}")
+        return text
+    if kind == "float":
+        number = _number(value, where)
+        if opt.dest == "f0_latitude" and not -90.0 <= number <= 90.0:
+            _fail(where, f"a latitude lies between -90 and 90; found {number:g}")
+        if opt.dest == "dpi" and not 1.0 <= number <= 2000.0:
+            _fail(where, f"expected a resolution between 1 and 2000 dots per inch; found {number:g}")
+        return number
+    if kind == "int":
+        number = _number(value, where, int)
+        if opt.dest == "width_px" and not 16 <= number <= 20000:
+            _fail(where, f"expected a width between 16 and 20000 pixels; found {number}")
+        return number
+    if kind == "names":
+        if isinstance(value, dict):
+            pairs = list(value.items())
+        else:
+            pairs = []
+            for item in _text_list(value, where):
+                key, sep, name = item.partition("=")
+                if not sep or not key.strip() or not name.strip():
+                    _fail(where, f"expected CANONICAL=NAME pairs such as temperature=ta; found {item!r}")
+                pairs.append((key.strip(), name.strip()))
+        if not all(isinstance(k, str) and isinstance(v, str) for k, v in pairs):
+            _fail(where, f"expected names as text, found {value!r}")
+        return dict(pairs)
+    if kind == "text":
+        if not isinstance(value, str):
+            _fail(where, f"expected text, found {value!r}")
+        return value.strip()
+    raise AssertionError(f"unknown option kind {kind!r}")  # pragma: no cover - a bug in the table
+
+
+def _relative(path: str, base: Path | None) -> str:
+    text = os.path.expanduser(path)
+    if base is not None and not os.path.isabs(text):
+        return os.path.join(base, text)
+    return text
+
+
+def _load_config(path: str) -> dict:
+    try:
+        import tomllib
+    except ImportError:  # Python 3.10
+        import tomli as tomllib
+    try:
+        with open(path, "rb") as fh:
+            data = tomllib.load(fh)
+    except FileNotFoundError:
+        raise InputDataError(f"config file not found: {path!r}") from None
+    except OSError as exc:
+        raise InputDataError(f"cannot read the config file {path!r}: {exc.strerror or exc}") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InputDataError(f"config file {path!r} is not valid TOML: {exc}") from None
+    known_tables = ("defaults",) + tuple(COMMANDS)
+    for table, content in data.items():
+        if table not in known_tables:
+            raise InputDataError(
+                f"config file {path!r}: unknown table [{table}]; the tables are "
+                + ", ".join(f"[{t}]" for t in known_tables)
+            )
+        if not isinstance(content, dict):
+            raise InputDataError(f"config file {path!r}: {table} must be a table [{table}], found {content!r}")
+    return data
+
+
+def _config_options(data: dict, command: str, path: str) -> tuple[dict, dict]:
+    """(values from [defaults], values from [command]), keys checked against the known options."""
+    usable = [d for d in COMMANDS[command][2] if d != "config"]
+    every = sorted({d for c in COMMANDS.values() for d in c[2] if d != "config"})
+    out = []
+    for table, allowed in (("defaults", every), (command, usable)):
+        values = {}
+        for key, value in data.get(table, {}).items():
+            dest = key.replace("-", "_")
+            if dest not in allowed:
+                raise InputDataError(
+                    f"config file {path!r}: unknown key {key!r} in [{table}]; the known keys are "
+                    + ", ".join(k.replace("_", "-") for k in allowed)
+                )
+            values[dest] = value
+        out.append(values)
+    return out[0], out[1]
+
+
+def _resolve(ns: argparse.Namespace, command: str) -> dict:
+    """The value of every option of ``command``: flag, else [command], else [defaults], else built-in."""
+    dests = [d for d in COMMANDS[command][2]]
+    defaults = COMMANDS[command][3]
+    from_defaults, from_command = {}, {}
+    config = None
+    if getattr(ns, "config", None) is not None:
+        config = os.path.expanduser(ns.config)
+        from_defaults, from_command = _config_options(_load_config(config), command, config)
+    base = Path(config).resolve().parent if config else None
+    values = {}
+    for dest in dests:
+        if dest == "config":
+            continue
+        opt = _OPTIONS[dest]
+        given = getattr(ns, dest, None)
+        if given is not None and not (opt.kind == "files" and given == []):
+            values[dest] = _convert(opt, given, _flag_name(opt), None)
+        elif dest in from_command:
+            values[dest] = _convert(opt, from_command[dest], f"config [{command}] {dest.replace('_', '-')}", base)
+        elif dest in from_defaults and dest in dests:
+            values[dest] = _convert(opt, from_defaults[dest], f"config [defaults] {dest.replace('_', '-')}", base)
+        else:
+            default = defaults.get(dest, opt.default)
+            values[dest] = default if opt.kind in ("bool", "flag") or default is None else \
+                _convert(opt, default, _flag_name(opt), None)
+    return values
+
+
+def _flag_name(opt: _Option) -> str:
+    return opt.flags[-1] if opt.flags else "FILE"
+
+
+# ============================================================================ running
+def _say(quiet: bool, *lines: str) -> None:
+    if not quiet:
+        for line in lines:
+            print(line, flush=True)
+
+
+def _progress_wanted(quiet: bool) -> bool:
+    """A bar only on an interactive terminal (a log file or a pipe gets none), never with --quiet."""
+    return not quiet and hasattr(sys.stderr, "isatty") and sys.stderr.isatty()
+
+
+def _use_agg() -> None:
+    """Render off-screen: the command line never opens a window."""
+    if "matplotlib.pyplot" not in sys.modules:
+        import matplotlib
+
+        matplotlib.use("Agg")
+
+
+def _need_files(opts: dict, command: str) -> list:
+    if not opts.get("files"):
+        raise InputDataError(
+            f"{command} needs one or more input files (positional FILE..., or files = [...] in the config)")
+    return opts["files"]
+
+
+def _run_demo(opts: dict, argv: list) -> int:
+    from . import workflow as W
+
+    _use_agg()
+    report = W.run_demo(opts["output_dir"], overwrite=bool(opts["overwrite"]), progress=_progress_wanted(opts["quiet"]))
+    if not opts["quiet"]:
+        print(report.text(caution=True), flush=True)
+    return 0
+
+
+def _run_inspect(opts: dict, argv: list) -> int:
+    from . import workflow as W
+
+    paths = W.expand_sources(_need_files(opts, "inspect"))
+    ds = W.open_inputs(paths, names=opts.get("names"))
+    try:
+        print(W.describe_inputs(ds, paths).text(), flush=True)
+    finally:
+        ds.close()
+    return 0
+
+
+def _compute_options(opts: dict) -> dict:
+    return {
+        "region": opts.get("region"),
+        "form": opts["form"],
+        "smoothing": None if opts["smoothing"] in ("", "none") else opts["smoothing"],
+        "coriolis": opts["coriolis"],
+        "f0_latitude": opts.get("f0_latitude"),
+    }
+
+
+def _parameters(opts: dict, keys) -> dict:
+    out = {}
+    for key in keys:
+        value = opts.get(key)
+        if isinstance(value, list):
+            value = ",".join(f"{v:g}" if isinstance(v, float) else str(v) for v in value)
+        elif isinstance(value, dict):
+            value = ",".join(f"{k}={v}" for k, v in value.items())
+        out[key.replace("_", "-")] = "default" if value is None else value
+    return out
+
+
+def _run_compute(opts: dict, argv: list) -> int:
+    from . import workflow as W
+
+    start = time.perf_counter()
+    if not opts.get("output"):
+        raise InputDataError("compute needs the output file: -o OUT.nc (or output = '...' in the config)")
+    paths = W.expand_sources(_need_files(opts, "compute"))
+    W.check_output_file(opts["output"], overwrite=bool(opts["overwrite"]), inputs=paths)
+    ds = W.open_inputs(paths, names=opts.get("names"))
+    try:
+        parameters = {"files": " ".join(paths), **_parameters(opts, (
+            "output", "fields", "levels", "times", "region", "form", "smoothing", "coriolis", "f0_latitude",
+            "omega", "dtype", "names"))}
+        path, results = W.compute_to_netcdf(
+            ds, opts["output"], overwrite=bool(opts["overwrite"]), dtype=opts["dtype"],
+            command=f"{_PROG} " + shlex.join(argv), parameters=parameters, progress=_progress_wanted(opts["quiet"]),
+            fields=opts["fields"], times=opts.get("times"), levels=opts.get("levels"), omega=bool(opts["omega"]),
+            **_compute_options(opts),
+        )
+    finally:
+        ds.close()
+    if not opts["quiet"]:
+        names = list(results.data_vars)
+        tdim = "time" if "time" in results.dims else None
+        shape = (f"{results.sizes[tdim]} time(s) x " if tdim else "") + f"{results.sizes['level']} level(s)"
+        lines = [
+            f"wrote {path} ({path.stat().st_size / 1e6:.1f} MB): {len(names)} variable(s) on {shape}, "
+            f"{results.attrs.get('qgforce_region', 'whole grid')}, omega form {results.attrs.get('qgforce_form')}",
+            "  " + ", ".join(names),
+        ]
+        if results.attrs.get("qgforce_not_computed"):
+            lines.append(f"  not computed: {results.attrs['qgforce_not_computed']}")
+        lines += [W.CAUTION_TEXT, f"wall time: {time.perf_counter() - start:.1f} s"]
+        print("\n".join(lines), flush=True)
+    return 0
+
+
+def _run_maps(opts: dict, argv: list) -> int:
+    from . import workflow as W
+
+    start = time.perf_counter()
+    _use_agg()
+    paths = W.expand_sources(_need_files(opts, "maps"))
+    ds = W.open_inputs(paths, names=opts.get("names"))
+    try:
+        written = W.make_maps(
+            ds, opts["output_dir"], fields=opts.get("fields"), levels=opts.get("levels"), times=opts.get("times"),
+            summary=bool(opts["summary"]), dpi=opts["dpi"], width_px=opts.get("width_px"),
+            overwrite=bool(opts["overwrite"]), projection=opts["projection"], progress=_progress_wanted(opts["quiet"]),
+            **_compute_options(opts),
+        )
+    finally:
+        ds.close()
+    if not opts["quiet"]:
+        shown = ", ".join(p.name for p in written[:4]) + (", ..." if len(written) > 4 else "")
+        print(f"wrote {len(written)} PNG file(s) to {opts['output_dir']}/: {shown}\n{W.CAUTION_TEXT}\n"
+              f"wall time: {time.perf_counter() - start:.1f} s", flush=True)
+    return 0
+
+
+def _run_selfcheck(opts: dict, argv: list) -> int:
+    try:
+        from .selfcheck import run_selfcheck
+    except ImportError as exc:
+        if getattr(exc, "name", "") in ("qgforce.selfcheck",):
+            raise InputDataError(
+                "the self-check is not available in this installation (no qgforce.selfcheck module)") from None
+        raise
+    if opts["quiet"]:
+        report = run_selfcheck(quick=bool(opts["quick"]))
+        print(f"{report.passed} of {report.total} cases passed", flush=True)
+    else:  # the table is printed row by row as the checks run, ending with "N of M cases passed"
+        report = run_selfcheck(quick=bool(opts["quick"]), stream=sys.stdout)
+    return 0 if report.ok else 1
+
+
+_HANDLERS = {"demo": _run_demo, "inspect": _run_inspect, "compute": _run_compute, "maps": _run_maps,
+             "selfcheck": _run_selfcheck}
+
+
+def _error_line(exc: BaseException) -> str:
+    """One line for a user error, with the library's ``names=`` hint spelled as the option."""
+    text = " ".join(str(exc).split()) or type(exc).__name__
+    text = re.sub(r"pass names=\{'(\w+)': '[^']*'\}(?: to open_dataset)?", r"pass --names \1=<name in the file>", text)
+    return text
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    text = " ".join(str(message).split())
+    print(f"{_PROG}: warning: {text} [{category.__name__}]", file=sys.stderr, flush=True)
+
+
+def main(argv=None) -> int:
+    """Run the command line; return the exit status (see the module docstring).
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        Arguments without the program name; default ``sys.argv[1:]``.
+
+    Returns
+    -------
+    int
+        0 success, 1 failed self-check, 2 user error, 130 interrupted.
+    """
+    argv = list(sys.argv[1:] if argv is None else argv)
+    with warnings.catch_warnings():
+        warnings.showwarning = _show_warning
+        try:
+            parser = build_parser()
+            try:
+                ns = parser.parse_args(argv)
+            except SystemExit as exc:  # --help, --version
+                return int(exc.code or 0)
+            if ns.command is None:
+                raise InputDataError("choose a subcommand: " + ", ".join(COMMANDS) + f" (see '{_PROG} --help')")
+            opts = _resolve(ns, ns.command)
+            return _HANDLERS[ns.command](opts, argv)
+        except (QGForceError, FileNotFoundError, PermissionError, IsADirectoryError, NotADirectoryError) as exc:
+            print(f"{_PROG}: error: {_error_line(exc)}", file=sys.stderr, flush=True)
+            return 2
+        except OSError as exc:  # the file system refused (disk full, read-only): not a bug of qgforce
+            detail = f"{exc.strerror or exc}" + (f": {exc.filename!r}" if getattr(exc, "filename", None) else "")
+            print(f"{_PROG}: error: {detail}", file=sys.stderr, flush=True)
+            return 2
+        except KeyboardInterrupt:
+            print(f"{_PROG}: interrupted", file=sys.stderr, flush=True)
+            return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
