@@ -542,7 +542,7 @@ def test_summary_figure_panels_levels_time_and_caution(no_cartopy):
     for ax in maps:  # geopotential contours on every panel
         assert any(isinstance(c, ContourSet) for c in ax.get_children())
     with_q = [ax.get_title() for ax in maps if any(isinstance(c, Quiver) for c in ax.get_children())]
-    assert with_q == ["q vector forcing — 500 hPa"]
+    assert with_q == ["Q-vector forcing −2∇·Q — 500 hPa"]
 
     fig = plot.summary_figure(ds, time=np.datetime64("2031-03-04T12:00"), level=30000.0, omega_level=85000.0,
                               fields=["omega_total", "temperature_advection", "frontogenesis"], ncols=2)
