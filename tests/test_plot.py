@@ -546,11 +546,11 @@ def test_summary_figure_panels_levels_time_and_caution(no_cartopy):
 
     fig = plot.summary_figure(ds, time=np.datetime64("2031-03-04T12:00"), level=30000.0, omega_level=85000.0,
                               fields=["omega_total", "temperature_advection", "frontogenesis"], ncols=2)
-    assert _panel_titles(fig) == ["omega total — 850 hPa", "temperature advection — 300 hPa"]
+    assert _panel_titles(fig) == ["QG ω (all terms) — 850 hPa", "temperature advection — 300 hPa"]
     assert "2031-03-04 12:00" in fig._suptitle.get_text()
     fig = plot.summary_figure(ds, level=300, omega_level=850, fields=["omega_total", "temperature_advection"])
     # values below 2000 are hPa (the library's convention for user-typed levels)
-    assert _panel_titles(fig) == ["omega total — 850 hPa", "temperature advection — 300 hPa"]
+    assert _panel_titles(fig) == ["QG ω (all terms) — 850 hPa", "temperature advection — 300 hPa"]
 
 
 def test_summary_figure_with_cartopy_offline(offline_cartopy, tmp_path):
