@@ -200,7 +200,8 @@ def invert_omega(
     coriolis : {"f0", "local"}
         f in the operator and in the forcing: one reference value (textbook) or f(φ).
     f0_latitude : float, optional
-        Reference latitude; default the area-weighted mean latitude of the domain.
+        Reference latitude; default the area-weighted mean latitude of the inversion domain
+        (used for the forcing terms and the operator alike).
     smoothing : optional
         Smoothing of the inputs of the forcing terms (see :func:`qgforce.smoothing.smooth`).
     domain : optional
@@ -249,6 +250,12 @@ def invert_omega(
         )
     from .forcing import omega_rhs
 
+    if f0_latitude is None:
+        # one reference latitude for the forcing and the operator: the domain's area-weighted mean
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", EquatorialMaskWarning)
+            dom_grid = Grid.from_dataset(select_domain(ds[["temperature"]], domain, equator_mask))
+        f0_latitude = float((dom_grid.area_mean_weights() * dom_grid.latitude).sum())
     if rhs is None:
         rhs = omega_rhs(ds, form=form, coriolis=coriolis, f0_latitude=f0_latitude, smoothing=smoothing, equator_mask=equator_mask)
     sub = select_domain(xr.merge([ds, rhs], compat="override", join="inner"), domain, equator_mask)

@@ -165,3 +165,14 @@ def test_lift_facts_of_the_trade():
     assert res["lift_height"].item() == pytest.approx(10800.0 / (rho * C.GRAVITY))
     with pytest.raises(InputDataError, match="positive"):
         lift_over_time(om, 0.0)
+
+
+def test_reference_latitude_shared_by_forcing_and_operator():
+    # with a sub-domain, the forcing and the operator must use the same f0 (the domain's mean latitude)
+    case = baroclinic_wave(n=16, nlev=9)
+    y = case.ds["y"].values
+    dom = {"y": (y[2], y[-1])}
+    res = invert_omega(case.ds, domain=dom, coriolis="f0")
+    lat = case.ds["latitude"].sel(y=slice(y[2], y[-1])).values
+    f0 = 2 * C.EARTH_ANGULAR_VELOCITY * np.sin(np.deg2rad(lat.mean()))
+    assert f"{f0:.4e}" in res.attrs["qgforce_coriolis"]
