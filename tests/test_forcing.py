@@ -23,6 +23,7 @@ import sympy as sp
 import xarray as xr
 
 import qgforce.forcing as F
+from qgforce.calculus import gradient
 from qgforce.constants import DRY_AIR_GAS_CONSTANT as RD
 from qgforce.constants import EARTH_ANGULAR_VELOCITY as OMEGA
 from qgforce.constants import EARTH_RADIUS as A
@@ -389,7 +390,9 @@ def test_two_right_hand_sides_agree_on_beta_plane(beta_plane_case):
 # ============================================================================ sympy: the sphere
 @pytest.fixture(scope="module")
 def sphere_case():
-    """Exact fields (sympy) on a lat–lon band, local f: Φ = Φ0(p) − Ω a U(p) sin²φ + A(p) sin(6λ + θ(p)) cos(3(φ − π/4)).
+    """Exact fields (sympy) on a lat–lon band, local f.
+
+    Φ = Φ0(p) − Ω a U(p) sin²φ + A(p) sin(6λ + θ(p)) cos(3(φ − π/4)), T hydrostatic.
 
     Operators of science.md; velocity gradient with the metric terms (Batchelor 1967, app. 2):
     ux = u_λ/(a cos φ) − v tan φ/a, vx = v_λ/(a cos φ) + u tan φ/a, uy = u_φ/a, vy = v_φ/a.
@@ -468,6 +471,20 @@ def test_sphere_wave_second_order_against_sympy(sphere_case):
     for k, e in errs.items():
         assert orders(e).min() >= 1.8, (k, e)
         assert e[-1] < 1e-2, (k, e)
+    # the angle β against its definition, from independent pieces: the isentropes run at atan2(θy, θx) − 90°,
+    # the dilatation axis at ½ atan2(S, E) (kinematics.deformation); lines, so modulo 180°; and the
+    # deformation part is ½|∇θ| D cos 2β (Petterssen 1936)
+    from qgforce.kinematics import deformation
+
+    d = deformation(ds.u, ds.v)
+    tx, ty = gradient(ds.temperature)
+    chi = np.rad2deg(np.arctan2(ty.values, tx.values)) - 90.0
+    diff = (ft.isentrope_dilatation_angle.values - (chi - d.dilatation_axis_angle.values) + 90.0) % 180.0 - 90.0
+    assert np.abs(diff).max() < 1e-7
+    g = ft.potential_temperature_gradient
+    expected = 0.5 * g * d.total_deformation * np.cos(2 * np.deg2rad(ft.isentrope_dilatation_angle))
+    np.testing.assert_allclose(ft.frontogenesis_deformation.values, expected.values, rtol=0,
+                               atol=1e-9 * np.abs(expected.values).max())
 
 
 # ============================================================================ sign sense
@@ -551,7 +568,6 @@ def test_layer_geostrophic_thickness_advection_independent_of_average():
     out = F.layer_temperature_advection(ds, 100000, 50000, f0_latitude=45.0)
     h = (ds.geopotential.sel(level=50000.0) - ds.geopotential.sel(level=100000.0)) / GRAVITY
     g = Grid.from_dataset(ds)
-    from qgforce.calculus import gradient
     from qgforce.kinematics import geostrophic_wind
 
     ub, vb = geostrophic_wind(ds.geopotential.sel(level=100000.0), g, "f0", 45.0)
@@ -717,7 +733,8 @@ def test_every_diagnostic_is_lazy_on_dask_and_matches_numpy(beta_plane_case, no_
 def test_missing_temperature_for_q_vectors(beta_plane_case):
     _, build, _ = beta_plane_case
     ds, _ = build(25, 3)
-    with pytest.raises(MissingVariableError, match="Q-vectors need temperature .* and geopotential .* on at least one level"):
+    with pytest.raises(MissingVariableError,
+                       match="Q-vectors need temperature .* and geopotential .* on at least one level"):
         F.q_vectors(ds.drop_vars("temperature"))
     with pytest.raises(MissingVariableError, match="missing: u, v"):
         F.frontogenesis(ds.drop_vars(["u", "v"]))
