@@ -51,6 +51,10 @@ LIQUID_WATER_SPECIFIC_HEAT = 4218.0
 #: Specific heat of water vapour at constant pressure [J kg-1 K-1] (Bolton 1980: 1885).
 WATER_VAPOUR_SPECIFIC_HEAT_P = 1885.0
 
+#: The Celsius zero, 0 °C = 273.15 K [K] (definition of the degree Celsius: BIPM, *The International
+#: System of Units (SI)*, 9th ed., 2019, section 2.3.1).
+ZERO_CELSIUS = 273.15
+
 #: Seconds in an hour and a day (definitions).
 SECONDS_PER_HOUR = 3600.0
 SECONDS_PER_DAY = 86400.0
@@ -73,6 +77,7 @@ __all__ = [
     "LATENT_HEAT_VAPORISATION",
     "LIQUID_WATER_SPECIFIC_HEAT",
     "WATER_VAPOUR_SPECIFIC_HEAT_P",
+    "ZERO_CELSIUS",
     "SECONDS_PER_HOUR",
     "SECONDS_PER_DAY",
     "DEFAULT_EQUATOR_MASK_DEGREES",

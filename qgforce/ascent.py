@@ -1,0 +1,851 @@
+"""Lifting columns by the diagnosed ascent, and the hours of ascent to initiation potential.
+
+Large-scale ascent rarely starts convection itself; over hours it deepens the moist layer,
+steepens the lapse rate and erodes the convective inhibition.  This module lifts every column by a
+given vertical velocity — the QG ω of :func:`qgforce.omega.invert_omega` (``omega_total``) or a
+model's own ω, or w — and reports how the column changes (:func:`lift_columns`) and how many
+hours of that ascent bring a low-level parcel to saturation and to weak inhibition
+(:func:`hours_to_initiation`).
+
+.. caution::
+   A kinematic estimate of the large-scale contribution only.  Mesoscale boundaries (fronts,
+   outflows, sea breezes, orography), diabatic effects (latent heating feeding back on ω,
+   radiation, evaporation) and surface heating and moistening are not in it, and horizontal
+   advection is neglected: columns are lifted in place.
+
+Method (one column at a time, vectorised over all columns):
+
+* **Parcel paths.**  The air of every level is a parcel moving vertically with dp/dt = ω(p), ω
+  held constant in time (or over each time step of a sequence) and interpolated *linearly in p*
+  between the levels (constant beyond the lowest and highest valid levels).  In a layer where
+  ω = ω_j + b (p − p_j) the path is exact: p(t) = p₀ + ω(p₀) t (e^{bt} − 1)/(bt), and the time to
+  reach a pressure p₁ is t = ln(ω(p₁)/ω(p₀)) / b (infinite when ω changes sign in between: the air
+  approaches the level of zero ω and stays).  Paths are followed layer by layer with these closed
+  forms: no time-stepping error.  Linear-in-p rather than linear-in-ln p interpolation of ω is
+  what makes the path closed-form; the two differ at second order in the layer depth.  The flow
+  of dp/dt = ω(p) with ω Lipschitz in p preserves the order of the parcels, so parcels do not
+  cross; a check counts any that would (round-off) and sorts them.
+* **Thermodynamics.**  Dry-adiabatic (θ and mixing ratio conserved) until saturated, then
+  pseudo-adiabatic (condensate removed, q = q_s), with the LCL and the pseudo-adiabats of
+  :mod:`qgforce.moist`; descending air warms dry-adiabatically.
+* **Re-gridding.**  The displaced parcels are interpolated back onto the original levels,
+  linearly in ln p.  Levels outside the span of the displaced parcels (below the lowest one when
+  the lowest level rises, above the highest one when the top sinks) keep their original air: the
+  air that converges there is taken to be like the air that was there, consistently with
+  neglecting horizontal advection.
+* **Diagnostics** of :func:`qgforce.moist.column_diagnostics` are recomputed on the lifted
+  columns.
+
+References
+----------
+Holton, J. R. and G. J. Hakim, 2013: *An Introduction to Dynamic Meteorology*, 5th ed., §3.5
+(ω ≈ −ρ g w).
+Emanuel, K. A., 1994: *Atmospheric Convection*, Oxford University Press, §6.3 (CAPE, CIN).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import xarray as xr
+
+from . import constants as C
+from . import moist as M
+from ._units import parse_units, to_si
+from .errors import GridError, InputDataError, MissingVariableError, UnitsError
+from .moist import LEVEL, PARCELS
+
+__all__ = [
+    "lift_columns",
+    "hours_to_initiation",
+    "DEFAULT_CIN_THRESHOLD",
+    "DEFAULT_HORIZON_HOURS",
+    "TIME_INTERPOLATIONS",
+]
+
+#: CIN weaker than this [J kg-1] counts as "initiation potential" (common practice: inhibition of a
+#: few tens of J kg-1 is overcome by ordinary boundary-layer and mesoscale lifting).
+DEFAULT_CIN_THRESHOLD = 25.0
+
+#: Default search horizon [h] of :func:`hours_to_initiation`.
+DEFAULT_HORIZON_HOURS = 24.0
+
+#: How ω varies between the times of a sequence: held over each step, or linear in time.
+TIME_INTERPOLATIONS = ("step", "linear")
+
+#: Sub-steps per interval of the "linear" interpolation (ω at the sub-step midpoints: a
+#: second-order approximation of the linearly varying flow).
+_LINEAR_SUBSTEPS = 4
+
+_K = C.KAPPA
+_CAUTION = ("kinematic estimate of the large-scale contribution; mesoscale boundaries, diabatic effects and surface "
+            "heating are not in it; horizontal advection neglected")
+
+
+# =============================================================================== parcel paths
+@dataclass
+class _Flow:
+    """ω [Pa s-1] on the levels, (nz, N) per step, with the steps' start and end times [s]."""
+
+    omega: list
+    start: np.ndarray
+    end: np.ndarray
+
+    def columns(self, idx) -> "_Flow":
+        return _Flow([om[:, idx] for om in self.omega], self.start, self.end)
+
+
+def _make_flow(omega, step_hours, interpolation) -> _Flow:
+    """The flow from ω (nz, N) (steady) or (nt, nz, N) at times ``step_hours`` [h] from the start."""
+    if omega.ndim == 2:
+        return _Flow([omega], np.array([0.0]), np.array([np.inf]))
+    times = np.asarray(step_hours, float) * C.SECONDS_PER_HOUR
+    steps, start, end = [], [], []
+    if interpolation == "linear" and times.size > 1:
+        for i in range(times.size - 1):
+            edges = np.linspace(times[i], times[i + 1], _LINEAR_SUBSTEPS + 1)
+            for a, b in zip(edges[:-1], edges[1:]):
+                w = (0.5 * (a + b) - times[i]) / (times[i + 1] - times[i])
+                steps.append((1.0 - w) * omega[i] + w * omega[i + 1])
+                start.append(a)
+                end.append(b)
+    else:
+        for i in range(times.size - 1):
+            steps.append(omega[i])
+            start.append(times[i])
+            end.append(times[i + 1])
+    steps.append(omega[-1])
+    start.append(times[-1])
+    end.append(np.inf)
+    return _Flow([np.ascontiguousarray(s) for s in steps], np.array(start), np.array(end))
+
+
+def _advance(p, m, col, tau, om, plev, k0, k1, stop=None):
+    """Move parcels exactly along the steady flow dp/dt = ω(p) for ``tau`` seconds each.
+
+    Parameters
+    ----------
+    p, m, col, tau : (M,) arrays
+        Pressure [Pa], index of the level at or below the parcel (p_m ≥ p ≥ p_{m+1}; k0 − 1 below
+        the lowest valid level), column, duration [s].
+    om : (nz, N) array
+        ω on the levels [Pa s-1]; linear in p between levels, constant beyond the valid block.
+    plev : (nz,) array
+    k0, k1 : (N,) arrays
+        Valid block of each column (levels k0 … k1 − 1).
+    stop : (M,) array, optional
+        Pressure where a rising parcel stops (its LCL).
+
+    Returns
+    -------
+    p, m, tau_left, reached
+        ``reached`` marks parcels stopped at ``stop``; ``tau_left`` their unused time.
+    """
+    nz, n = om.shape
+    flat = om.ravel()
+    p, m, tau = p.copy(), m.copy(), tau.astype(float, copy=True)
+    reached = np.zeros(p.size, bool)
+    live = np.flatnonzero(tau > 0)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        for _ in range(2 * nz + 4):
+            if live.size == 0:
+                break
+            c, mm, pp, tt = col[live], m[live], p[live], tau[live]
+            kb, kt = k0[c], k1[c] - 1
+            has_lo, has_hi = mm >= kb, mm + 1 <= kt
+            ilo, ihi = np.clip(mm, kb, kt), np.clip(mm + 1, kb, kt)
+            om_lo, om_hi = flat[ilo * n + c], flat[ihi * n + c]
+            p_lo, p_hi = plev[ilo], plev[ihi]
+            interior = has_lo & has_hi
+            b = (om_hi - om_lo) / (p_hi - p_lo + ~interior)
+            v = om_lo + b * (pp - p_lo)
+            up = v < 0
+            tgt = np.where(up, p_hi, p_lo)
+            has_t = np.where(up, has_hi, has_lo)
+            if stop is not None:
+                st = stop[live]
+                use_stop = up & (st < pp) & ((st >= p_hi) | ~has_hi)
+                tgt = np.where(use_stop, st, tgt)
+                has_t |= use_stop
+            x = b * tt
+            small = np.abs(x) < 1e-8
+            phi = np.where(small, 1.0 + 0.5 * x, np.expm1(x) / np.where(small, 1.0, x))
+            p_new = pp + v * tt * phi
+            crossed = has_t & (v != 0) & np.where(up, p_new <= tgt, p_new >= tgt)
+            fin = ~crossed
+            lf = live[fin]
+            p[lf] = np.maximum(p_new[fin], 0.5 * plev[kt[fin]])
+            tau[lf] = 0.0
+            ci = np.flatnonzero(crossed)
+            if ci.size == 0:
+                break
+            lc = live[ci]
+            r = (om_lo[ci] + b[ci] * (tgt[ci] - p_lo[ci])) / v[ci]
+            y = r - 1.0
+            psi = np.where(np.abs(y) < 1e-7, 1.0 - 0.5 * y, np.log(r) / np.where(y == 0, 1.0, y))
+            t_cross = np.where(r > 0, (tgt[ci] - pp[ci]) / v[ci] * psi, np.inf)
+            t_cross = np.minimum(np.maximum(t_cross, 0.0), tt[ci])
+            p[lc] = tgt[ci]
+            tau[lc] = tt[ci] - t_cross
+            hit = use_stop[ci] if stop is not None else np.zeros(ci.size, bool)
+            reached[lc[hit]] = True
+            m[lc] += np.where(hit, 0, np.where(up[ci], 1, -1))
+            live = lc[~hit & (tau[lc] > 0)]
+    return p, m, tau, reached
+
+
+def _first_layer(k, cols, dur, om, plev, k0, k1):
+    """The path of the air of level ``k`` (columns ``cols``) while it stays in its first layer.
+
+    The closed forms of :func:`_advance`, written with whole rows (every parcel starts on level
+    k).  Returns the pressure after ``dur`` (exact for the parcels that stay in the layer), the
+    positions in ``cols`` of those that leave it and, for them, the level they reach, its index
+    and the time left.
+    """
+    nz = plev.size
+    sel = slice(None) if cols.size == k0.size else cols
+    v = om[k, sel]
+    up = v < 0
+    kb, kt = k0[sel], k1[sel]
+    om_up = om[k + 1, sel] if k + 1 < nz else v
+    om_dn = om[k - 1, sel] if k >= 1 else v
+    p_up = plev[k + 1] if k + 1 < nz else 0.0
+    p_dn = plev[k - 1] if k >= 1 else np.inf
+    has_t = np.where(up, k + 1 < kt, k - 1 >= kb)
+    om_t = np.where(up, om_up, om_dn)
+    dp = np.where(up, p_up - plev[k], p_dn - plev[k])
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        x = np.where(has_t, (om_t - v) / dp, 0.0) * dur
+        x += np.copysign(1e-200, x)
+        p_new = plev[k] + v * dur * (np.expm1(x) / x)
+    crossed = has_t & np.where(up, p_new <= p_up, p_new >= p_dn)
+    if k1.min() == nz:
+        np.maximum(p_new, 0.5 * plev[-1], out=p_new)
+    else:
+        np.maximum(p_new, 0.5 * plev[np.clip(kt - 1, 0, nz - 1)], out=p_new)
+    c = np.flatnonzero(crossed)
+    if c.size == 0:
+        return p_new, c, None
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = om_t[c] / v[c]
+        y = r - 1.0
+        psi = np.where(np.abs(y) < 1e-7, 1.0 - 0.5 * y, np.log(r) / np.where(y == 0, 1.0, y))
+        t_cross = np.minimum(np.maximum(dp[c] / v[c] * psi, 0.0), dur[c])
+    upc = up[c]
+    return p_new, c, (np.where(upc, p_up, p_dn), np.where(upc, k + 1, k - 1), dur[c] - t_cross)
+
+
+def _move(p, m, col, dur, flow: _Flow, plev, k0, k1, stop=None):
+    """Follow parcels through the steps of ``flow`` for ``dur`` seconds each.
+
+    Returns the pressure and level index at the end and, with ``stop``, the time [s] at which
+    each parcel reached it (NaN when it did not within ``dur``).
+    """
+    t_stop = np.full(p.size, np.nan)
+    done = np.zeros(p.size, bool)
+    for om, ta, tb in zip(flow.omega, flow.start, flow.end):
+        d = np.clip(dur - ta, 0.0, tb - ta)
+        d[done] = 0.0
+        if not (d > 0).any():
+            continue
+        p, m, left, reached = _advance(p, m, col, d, om, plev, k0, k1, stop)
+        if stop is not None:
+            t_stop[reached] = ta + (d - left)[reached]
+            done |= reached
+    return p, m, t_stop
+
+
+# ============================================================================ lifting columns
+def _cache_level_lcl(prof):
+    """Keep the pseudo-adiabat label of every level's parcel (reused by repeated liftings)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tl = M._lcl_temperature(prof.t, prof.x)
+        sl = prof.s[:, None] + np.log(tl / prof.t) / _K
+    ok = np.isfinite(tl)
+    lab = np.full(prof.t.shape, np.nan)
+    lab[ok] = M._adiabats().label(tl[ok], sl[ok])
+    prof.cache["level_lcl"] = (sl, lab)
+
+
+def _lift_parcels(prof, flow: _Flow, dur):
+    """Displace the parcel of every level of every column for ``dur`` [s] (per column).
+
+    Returns ln p, temperature, specific humidity at the end and the saturation flag, (nz, N)
+    each, NaN outside the valid block.  Work is batched: the first layer of every level with
+    whole rows, then every parcel that left it in one pass of :func:`_advance` (or every parcel
+    through the later steps of a sequence), then the thermodynamics, then every parcel that
+    saturated in one pass through its LCL and pseudo-adiabat.
+    """
+    nz, n = prof.t.shape
+    plev = prof.p
+    s = prof.s
+    sf = np.full((nz, n), np.nan)
+    lo, hi = int(prof.k0.min(initial=nz)), int(prof.k1.max(initial=0))
+    levels = [(k, np.flatnonzero((k >= prof.k0) & (k < prof.k1))) for k in range(lo, hi)]
+    steady = len(flow.omega) == 1
+    if steady:
+        om = flow.omega[0]
+        pend, rest = {}, []
+        for k, cols in levels:
+            if cols.size:
+                pend[k], c, r = _first_layer(k, cols, dur[cols], om, plev, prof.k0, prof.k1)
+                if c.size:
+                    rest.append((k, c, cols[c]) + r)
+        if rest:
+            pc, _, _, _ = _advance(np.concatenate([r[3] for r in rest]), np.concatenate([r[4] for r in rest]),
+                                   np.concatenate([r[2] for r in rest]), np.concatenate([r[5] for r in rest]),
+                                   om, plev, prof.k0, prof.k1)
+            i = 0
+            for k, c, *_ in rest:
+                pend[k][c] = pc[i:i + c.size]
+                i += c.size
+    else:
+        ks = np.concatenate([np.full(c.size, k) for k, c in levels]) if levels else np.zeros(0, int)
+        cs = np.concatenate([c for _, c in levels]) if levels else np.zeros(0, int)
+        pall, _, _ = _move(plev[ks], ks, cs, dur[cs], flow, plev, prof.k0, prof.k1)
+        pend, i = {}, 0
+        for k, c in levels:
+            pend[k] = pall[i:i + c.size]
+            i += c.size
+    tf, qf = np.full((nz, n), np.nan), np.full((nz, n), np.nan)
+    sat_all = np.zeros((nz, n), bool)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for k, cols in levels:
+            if not cols.size:
+                continue
+            full = cols.size == n
+            sel = slice(None) if full else cols
+            ds = np.log(pend[k] / plev[k])
+            t_end = prof.t[k, sel] * np.exp(_K * ds)
+            sat = (prof.x[k, sel] + ds) > M._es_exponent(t_end)
+            sf[k, sel] = s[k] + ds
+            tf[k, sel] = t_end
+            qf[k, sel] = prof.q[k, sel]
+            sat_all[k, sel] = sat
+    # saturated parcels: from their LCL along their pseudo-adiabat (condensate removed)
+    kk, cc = np.nonzero(sat_all)
+    if kk.size:
+        cached = prof.cache.get("level_lcl")
+        if cached is not None:
+            lab = cached[1][kk, cc]
+        else:
+            t0, x0 = prof.t[kk, cc], prof.x[kk, cc]
+            tl = M._lcl_temperature(t0, x0)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                sl = s[kk] + np.log(tl / t0) / _K
+            lab = M._adiabats().label(tl, sl)
+        tm = np.minimum(M._adiabats().temperature(lab, sf[kk, cc]), tf[kk, cc])
+        tf[kk, cc] = tm
+        qf[kk, cc] = M._q_from_e(M._es(tm), np.exp(sf[kk, cc]))
+    return sf, tf, qf, sat_all
+
+
+def _regrid(prof, sf, tf, qf):
+    """Interpolate the displaced parcels onto the levels, linearly in ln p.
+
+    The parcels of a column stay in order, so the parcel just below level m is the last of those
+    with ln p ≥ ln p_m: their count gives its index.  Levels outside the span of the parcels keep
+    their original values.  Returns T, q (nz, N) and the number of out-of-order parcels per column
+    (0 in exact arithmetic), which are sorted first.
+    """
+    nz, n = prof.t.shape
+    s = prof.s
+    with np.errstate(invalid="ignore", divide="ignore"):
+        idx = np.arange(nz)[:, None]
+        inside = (idx[1:] >= prof.k0 + 1) & (idx[1:] < prof.k1)
+        # ties (air converging on a level of zero ω until equal to round-off) are not crossings
+        crossed = (inside & (sf[1:] > sf[:-1] + 1e-12)).sum(axis=0)
+    if crossed.any():
+        cols = np.flatnonzero(crossed)
+        fin = np.isfinite(sf[:, cols])
+        order = np.argsort(np.where(fin, -sf[:, cols], np.inf), axis=0, kind="stable")
+        for a in (sf, tf, qf):
+            a[:, cols] = np.take_along_axis(a[:, cols], order, axis=0)
+    t_new, q_new = prof.t.copy(), prof.q.copy()
+    ar = np.arange(n)
+    fs, ft, fq = sf.ravel(), tf.ravel(), qf.ravel()
+    n_valid = prof.k1 - prof.k0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        cnt = np.zeros(n, np.intp)
+        # rows whose parcels all lie below (at higher ln p than) a level count in full; only the
+        # rows that straddle it are compared column by column
+        row_min = np.array([np.nanmin(r) if np.isfinite(r).any() else np.inf for r in sf])
+        row_max = np.array([np.nanmax(r) if np.isfinite(r).any() else -np.inf for r in sf])
+        row_n = np.isfinite(sf).sum(axis=1)
+        full_row = row_n == n
+        for lev in range(int(prof.k0.min(initial=nz)), int(prof.k1.max(initial=0))):
+            below = row_min >= s[lev]
+            cnt[:] = np.count_nonzero(below & full_row)
+            for k in np.flatnonzero(below & ~full_row):
+                cnt += np.isfinite(sf[k])
+            for k in np.flatnonzero((row_min < s[lev]) & (row_max >= s[lev])):
+                cnt += sf[k] >= s[lev]
+            cover = (cnt >= 1) & (cnt < n_valid) & (lev >= prof.k0) & (lev < prof.k1)
+            if cover.all():
+                a = (prof.k0 + cnt - 1) * n + ar
+                b = a + n
+                w = (fs[a] - s[lev]) / (fs[a] - fs[b])
+                t_new[lev] = ft[a] + w * (ft[b] - ft[a])
+                q_new[lev] = fq[a] + w * (fq[b] - fq[a])
+            elif cover.any():
+                c = np.flatnonzero(cover)
+                a = (prof.k0[c] + cnt[c] - 1) * n + c
+                b = a + n
+                w = (fs[a] - s[lev]) / (fs[a] - fs[b])
+                t_new[lev, c] = ft[a] + w * (ft[b] - ft[a])
+                q_new[lev, c] = fq[a] + w * (fq[b] - fq[a])
+    return t_new, q_new, crossed
+
+
+def _lifted_profile(prof, flow, dur):
+    """The lifted profile (a new _Profile) and the parcel end states."""
+    sf, tf, qf, sat = _lift_parcels(prof, flow, dur)
+    pf = np.exp(sf)
+    t_new, q_new, crossed = _regrid(prof, sf, tf, qf)
+    nz = prof.p.size
+    idx = np.arange(nz)[:, None]
+    block = (idx >= prof.k0) & (idx < prof.k1)
+    new = M._make_profile(prof.p, t_new, q_new, valid=block, copy=False)
+    return new, pf, tf, qf, sat, crossed
+
+
+def _valid_flow(t, om):
+    """Levels where ω is finite at every step (ω has shape (nz, N) or (nt, nz, N))."""
+    return np.isfinite(om) if om.ndim == 2 else np.isfinite(om).all(axis=0)
+
+
+def _lift_kernel(t, q, om, *, levels, step_hours, interpolation, hours, mu_depth, moist_threshold):
+    def block(tb, qb, ob):
+        prof = M._make_profile(levels, tb, qb, valid=_valid_flow(tb, ob), copy=False)
+        flow = _make_flow(ob, step_hours, interpolation)
+        dur = np.full(prof.n, hours * C.SECONDS_PER_HOUR)
+        new, pf, tf, qf, sat, crossed = _lifted_profile(prof, flow, dur)
+        out = M._diagnose(new, mu_depth, moist_threshold)
+        out["clipped"] = prof.cache["clipped"]
+        out.update(temperature=new.t, specific_humidity=new.q, displaced_pressure=pf / 100.0, saturated=sat,
+                   crossed_parcels=crossed)
+        return out
+
+    return M._by_blocks(block, t, q, om)
+
+
+# ======================================================================= hours to initiation
+def _tracked_cin(prof, flow, kstart, dur, threshold):
+    """f(D) = CIN + threshold of the tracked parcel after ``dur`` [s] of lifting (NaN without LFC)."""
+    new, pf, tf, qf, _, _ = _lifted_profile(prof, flow, dur)
+    n = prof.n
+    p0, t0, q0 = (M._gather(a, kstart, n) for a in (pf, tf, qf))
+    s0 = np.log(p0)
+    kfirst = np.searchsorted(-prof.s, -s0, side="right")
+    kfirst = np.maximum(kfirst, new.k0)
+    return M._ascend(prof.s, new.tv, new.k1, s0, t0, q0, kfirst)["cin"] + threshold
+
+
+def _search(f, cols, f0, horizon, tol, scan=(0.25, 0.5, 0.75), max_iter=40):
+    """Earliest duration in [0, horizon] [s] with f ≥ 0, per column (NaN if f(horizon) < 0).
+
+    f(D) is first evaluated at the horizon; columns where it is satisfied are bracketed by a coarse
+    scan (the first of ``scan`` × horizon where it holds), then refined by the Illinois variant of
+    regula falsi (bisection where a value is undefined), every column at once, until the bracket is
+    narrower than ``tol``.  Assumes f changes sign once within the bracket found.
+    """
+    res = np.full(cols.size, np.nan)
+    if cols.size == 0:
+        return res
+    fh = f(np.full(cols.size, horizon), np.arange(cols.size))
+    ok = np.flatnonzero(fh >= 0)
+    if ok.size == 0:
+        return res
+    a, b = np.zeros(ok.size), np.full(ok.size, float(horizon))
+    fa, fb = f0[ok].copy(), fh[ok].copy()
+    open_ = np.ones(ok.size, bool)
+    for frac in scan:
+        d = frac * horizon
+        i = np.flatnonzero(open_)
+        if i.size == 0:
+            break
+        fd = f(np.full(i.size, d), ok[i])
+        good = fd >= 0
+        b[i[good]], fb[i[good]] = d, fd[good]
+        a[i[~good]], fa[i[~good]] = d, fd[~good]
+        open_[i[good]] = False
+    side = np.zeros(ok.size, np.int8)
+    for _ in range(max_iter):
+        i = np.flatnonzero(b - a > tol)
+        if i.size == 0:
+            break
+        A, B, FA, FB = a[i], b[i], fa[i], fb[i]
+        w = B - A
+        sec = np.isfinite(FA) & np.isfinite(FB) & (FB > FA)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            c = np.where(sec, B - FB * w / np.where(sec, FB - FA, 1.0), A + 0.5 * w)
+        c = np.clip(c, A + 0.05 * w, B - 0.05 * w)
+        fc = f(c, ok[i])
+        good = fc >= 0
+        gi, bi = i[good], i[~good]
+        fa[gi[side[gi] == 1]] *= 0.5
+        fb[bi[side[bi] == -1]] *= 0.5
+        b[gi], fb[gi] = c[good], fc[good]
+        a[bi], fa[bi] = c[~good], fc[~good]
+        side[gi], side[bi] = 1, -1
+    res[ok] = b
+    return res
+
+
+def _hours_kernel(t, q, om, *, levels, step_hours, interpolation, horizon, parcel, threshold, tol, mu_depth):
+    def block(tb, qb, ob):
+        prof = M._make_profile(levels, tb, qb, valid=_valid_flow(tb, ob), copy=False)
+        flow = _make_flow(ob, step_hours, interpolation)
+        n = prof.n
+        has = prof.k0 < prof.k1
+        kstart = prof.k0 if parcel == "surface_based" else M._most_unstable_level(prof, mu_depth)
+        s0, t0, q0 = M._start_state(prof, kstart)
+        s0 = np.where(has, s0, np.nan)
+        a0 = M._ascend(prof.s, prof.tv, prof.k1, s0, t0, q0, kstart + 1)
+        horizon_s = horizon * C.SECONDS_PER_HOUR
+        # hours to saturation: the parcel's own path to its LCL, in closed form layer by layer
+        cols = np.flatnonzero(has)
+        kc = kstart[cols]
+        p_lcl = np.exp(a0["s_lcl"][cols])
+        p_start = prof.p[kc]
+        _, _, t_sat = _move(p_start.copy(), kc.copy(), cols, np.full(cols.size, horizon_s), flow, prof.p,
+                            prof.k0, prof.k1, stop=p_lcl)
+        t_sat = np.where(p_lcl >= p_start, 0.0, t_sat)
+        hours_sat = np.full(n, np.nan)
+        hours_sat[cols] = t_sat / C.SECONDS_PER_HOUR
+        # hours to weak inhibition: bracketing search over the lifting duration, all columns at once
+        _cache_level_lcl(prof)
+        f0 = a0["cin"] + threshold
+        hours_init = np.full(n, np.nan)
+        now = has & (f0 >= 0)
+        hours_init[now] = 0.0
+        cand = np.flatnonzero(has & ~(f0 >= 0))
+        sub = prof.columns(cand)
+        sub.cache["level_lcl"] = tuple(a[:, cand] for a in prof.cache["level_lcl"])
+        sub_flow = flow.columns(cand)
+        ks = kstart[cand]
+
+        def f(dur, which):
+            pr = sub.columns(which)
+            pr.cache["level_lcl"] = tuple(a[:, which] for a in sub.cache["level_lcl"])
+            return _tracked_cin(pr, sub_flow.columns(which), ks[which], dur, threshold)
+
+        found = _search(f, cand, f0[cand], horizon_s, tol * C.SECONDS_PER_HOUR)
+        hours_init[cand] = found / C.SECONDS_PER_HOUR
+        return {
+            "hours_to_saturation": hours_sat,
+            "hours_to_initiation": hours_init,
+            "parcel_pressure": np.exp(s0) / 100.0,
+            "initial_cape": a0["cape"],
+            "initial_cin": a0["cin"],
+            "clipped": prof.cache["clipped"],
+        }
+
+    return M._by_blocks(block, t, q, om)
+
+
+# ============================================================================ labelled layer
+def _step_hours(coord: xr.DataArray) -> np.ndarray:
+    """Hours since the first time of a time coordinate (datetime, timedelta, cftime or numeric with units)."""
+    v = coord.values
+    if np.issubdtype(v.dtype, np.datetime64) or np.issubdtype(v.dtype, np.timedelta64):
+        hours = (v - v[0]) / np.timedelta64(1, "h")
+    elif v.dtype == object:
+        hours = np.array([(x - v[0]).total_seconds() for x in v]) / C.SECONDS_PER_HOUR
+    else:
+        units = coord.attrs.get("units")
+        if not units:
+            raise UnitsError(f"time coordinate {coord.name!r} is numeric without units; give it datetimes or units such as 'hours'")
+        try:
+            factor = (1.0 * parse_units(str(units).split(" since ")[0])).to("hour").magnitude
+        except Exception as exc:  # pint dimensionality errors
+            raise UnitsError(f"time coordinate {coord.name!r} has units {units!r}, not a time") from exc
+        hours = (v - v[0]) * factor
+    hours = np.asarray(hours, float)
+    if hours.size > 1 and not np.all(np.diff(hours) > 0):
+        raise GridError(f"time coordinate {coord.name!r} must increase strictly; found {coord.values[:4]}...")
+    return hours
+
+
+def _omega_input(omega_or_w, t, q, time_dim):
+    """ω [Pa s-1] from ω or w (by its units), checked against the temperature's levels."""
+    if not isinstance(omega_or_w, xr.DataArray):
+        raise InputDataError("the vertical velocity must be a DataArray with a 'units' attribute ('Pa s-1' or 'm s-1')")
+    units = omega_or_w.attrs.get("units")
+    if not units:
+        raise UnitsError(
+            f"{omega_or_w.name or 'the vertical velocity'!r} has no units; set attrs['units'] to 'Pa s-1' for omega "
+            "(e.g. invert_omega(ds)['omega_total']) or 'm s-1' for w"
+        )
+    dim = parse_units(str(units)).dimensionality
+    if dim == parse_units("Pa s-1").dimensionality:
+        om = to_si(omega_or_w, "Pa s-1")
+    elif dim == parse_units("m s-1").dimensionality:
+        from .thermo import w_to_omega
+
+        om = w_to_omega(to_si(omega_or_w, "m s-1"), t, q)
+    else:
+        raise UnitsError(f"the vertical velocity has units {units!r}; expected omega in 'Pa s-1' or w in 'm s-1'")
+    if LEVEL not in om.dims or om.sizes[LEVEL] != t.sizes[LEVEL] or not np.allclose(om[LEVEL].values, t[LEVEL].values):
+        raise GridError(f"the vertical velocity must be on the levels of temperature ({t.sizes[LEVEL]} levels in Pa)")
+    if time_dim is not None and time_dim not in om.dims:
+        raise GridError(f"time_dim={time_dim!r} is not a dimension of the vertical velocity (dims {om.dims})")
+    return om
+
+
+def _prepare(temperature, specific_humidity, omega_or_w, time_dim, interpolation, what):
+    if interpolation not in TIME_INTERPOLATIONS:
+        raise InputDataError(f"time_interpolation must be one of {TIME_INTERPOLATIONS}; found {interpolation!r}")
+    t, q = M._thermo_inputs(temperature, specific_humidity, what)
+    if time_dim is not None:
+        t = t.isel({time_dim: 0}, drop=True) if time_dim in t.dims else t
+        q = q.isel({time_dim: 0}, drop=True) if time_dim in q.dims else q
+    om = _omega_input(omega_or_w, t, q, time_dim)
+    levels = M._level_values(t)
+    step_hours = None
+    core = [[LEVEL], [LEVEL], [LEVEL]]
+    if time_dim is not None:
+        step_hours = _step_hours(om[time_dim])
+        om = om.transpose(..., time_dim, LEVEL)
+        core[2] = [time_dim, LEVEL]
+    return t, q, om, levels, step_hours, core
+
+
+_LIFT_EXTRA = (
+    M._Out("temperature", "level", {"units": "K", "standard_name": "air_temperature", "long_name": "temperature of the lifted column"}),
+    M._Out("specific_humidity", "level", {"units": "kg kg-1", "standard_name": "specific_humidity",
+                                          "long_name": "specific humidity of the lifted column"}),
+    M._Out("displaced_pressure", "level", {"units": "hPa", "long_name": "pressure reached by the air that started at this level"}),
+    M._Out("saturated", "level", {"units": "1", "long_name": "the air of this level reached saturation "
+                                                          "(then rose pseudo-adiabatically)"}, bool),
+    M._Out("crossed_parcels", "column", {"units": "1", "long_name": "displaced parcels found out of order (sorted)"}, np.int64),
+)
+
+#: The changes reported by :func:`lift_columns`: (variable, its units, what a positive change means).
+_CHANGES = (
+    ("cape", "J kg-1", "more CAPE"),
+    ("cin", "J kg-1", "weaker inhibition"),
+    ("lapse_rate_850_500", "K km-1", "steeper lapse rate"),
+    ("moist_layer_depth", "hPa", "deeper moist layer"),
+)
+
+
+def lift_columns(
+    temperature,
+    specific_humidity,
+    omega_or_w: xr.DataArray,
+    hours: float,
+    *,
+    time_dim: str | None = None,
+    time_interpolation: str = "step",
+    most_unstable_depth: float = M.DEFAULT_MOST_UNSTABLE_DEPTH,
+    moist_threshold: float = M.DEFAULT_MOIST_THRESHOLD,
+    reference: xr.Dataset | None = None,
+) -> xr.Dataset:
+    """Lift every column by a vertical velocity for ``hours`` and diagnose the lifted column.
+
+    Parameters
+    ----------
+    temperature : xarray.DataArray or xarray.Dataset
+        Temperature [K] on isobaric levels (``level`` in Pa, strictly decreasing, surface first);
+        NaN below ground.  A normalised Dataset may be given instead (its ``temperature`` and
+        ``specific_humidity`` are used; pass ``specific_humidity=None``).
+    specific_humidity : xarray.DataArray or None
+        Specific humidity [kg kg-1].
+    omega_or_w : xarray.DataArray
+        ω [Pa s-1] (negative is ascent; e.g. ``invert_omega(ds)["omega_total"]`` or the model's
+        ``omega``) or w [m s-1], recognised by its ``units``; w is converted with ω = −ρ g w
+        (hydrostatic, ρ of the column).  Same levels as temperature.
+    hours : float
+        Duration of the lifting [h], ≥ 0.
+    time_dim : str, optional
+        When given, ω is a sequence along this dimension (times from its coordinate; the
+        temperature and humidity are taken at its first time) and the parcels follow it: ω held
+        over each step (``time_interpolation="step"``) or linear in time between the steps
+        (``"linear"``, four sub-steps per interval at their midpoints); after the last time it
+        is held.  Without it every extra dimension is an independent steady case.
+    time_interpolation : {"step", "linear"}
+    most_unstable_depth, moist_threshold : float
+        As in :func:`qgforce.moist.column_diagnostics`.
+    reference : xarray.Dataset, optional
+        :func:`~qgforce.moist.column_diagnostics` of the same (unlifted) columns with the same
+        options, when already computed (e.g. for the maps, or to lift for several durations);
+        computed here otherwise.  The changes are taken against it.
+
+    Returns
+    -------
+    xarray.Dataset
+        The lifted column on the original levels (``temperature``, ``specific_humidity``),
+        ``displaced_pressure`` [hPa] and ``saturated`` of the air of each level, every variable of
+        :func:`~qgforce.moist.column_diagnostics` for the lifted column, and the changes
+        ``cape_change``, ``cin_change`` (``parcel`` dim), ``lapse_rate_850_500_change``,
+        ``moist_layer_depth_change``; ``crossed_parcels`` (0 in exact arithmetic).  Lazy on dask.
+
+    Raises
+    ------
+    MissingVariableError
+        Without specific humidity.
+    UnitsError
+        When the vertical velocity is neither a pressure nor a length per time.
+    GridError, InputDataError
+        Levels or options unusable.
+
+    Warns
+    -----
+    DataQualityWarning
+        Humidity negative or supersaturated (clipped, counted).
+
+    Notes
+    -----
+    The method (closed-form parcel paths with ω linear in p between levels, dry then
+    pseudo-adiabatic thermodynamics, re-gridding in ln p, levels outside the displaced span
+    keeping their air) is described in :mod:`qgforce.ascent`.  Horizontal advection is
+    neglected.  The surface-based parcel of the lifted column is the air then at its lowest valid
+    level.  A CIN change is NaN where either CIN is undefined (no LFC).
+
+    This is a kinematic estimate of the large-scale contribution: mesoscale boundaries, diabatic
+    effects and surface heating are not in it.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> p = np.linspace(1e5, 2e4, 17)
+    >>> t = xr.DataArray(288.0 * (p / 1e5) ** 0.19, coords={"level": p}, dims="level", attrs={"units": "K"})
+    >>> q = (2e-3 * (t.level / 1e5) ** 3).assign_attrs(units="kg kg-1")
+    >>> w = xr.full_like(t, 0.1).assign_attrs(units="m s-1")
+    >>> out = lift_columns(t, q, w, 6.0)
+    >>> bool((out["displaced_pressure"] < p / 100).all())
+    True
+    """
+    if not np.isfinite(hours) or hours < 0:
+        raise InputDataError(f"the duration must be a finite number of hours ≥ 0; found {hours}")
+    t, q, om, levels, step_hours, core = _prepare(temperature, specific_humidity, omega_or_w, time_dim,
+                                                  time_interpolation, "lift_columns")
+    outputs = M._COLUMN_OUTPUTS + _LIFT_EXTRA
+    ds = M._apply_columns(
+        _lift_kernel, [t, q, om], core, outputs,
+        kwargs={"levels": levels, "step_hours": step_hours, "interpolation": time_interpolation, "hours": float(hours),
+                "mu_depth": float(most_unstable_depth), "moist_threshold": float(moist_threshold)},
+    )
+    if reference is None:
+        reference = M._column_dataset(t, q, most_unstable_depth, moist_threshold, warn=False)
+    missing = [name for name, _, _ in _CHANGES if name not in reference]
+    if missing:
+        raise MissingVariableError(f"reference lacks {missing}; pass the output of qgforce.moist.column_diagnostics")
+    for name, units, meaning in _CHANGES:
+        ds[f"{name}_change"] = (ds[name] - reference[name]).assign_attrs(
+            units=units, long_name=f"change of {reference[name].attrs.get('long_name', name)} by the lifting (positive: {meaning})")
+    ds.attrs = {
+        "qgforce_duration_hours": float(hours),
+        "qgforce_time_dim": str(time_dim),
+        "qgforce_time_interpolation": time_interpolation if time_dim else "steady",
+        "comment": _CAUTION,
+    }
+    return ds
+
+
+_HOURS_OUTPUTS = (
+    M._Out("hours_to_saturation", "column",
+           {"units": "h", "long_name": "hours of the ascent until the parcel saturates (reaches its LCL)"}),
+    M._Out("hours_to_initiation", "column",
+           {"units": "h", "long_name": "hours of the ascent until the parcel's CIN is weaker than the threshold "
+                                       "(or it is at its LFC)"}),
+    M._Out("parcel_pressure", "column", {"units": "hPa", "long_name": "pressure where the tracked parcel starts"}),
+    M._Out("initial_cape", "column", {"units": "J kg-1", "long_name": "CAPE of the tracked parcel before lifting"}),
+    M._Out("initial_cin", "column", {"units": "J kg-1", "long_name": "CIN of the tracked parcel before lifting"}),
+)
+
+
+def hours_to_initiation(
+    temperature,
+    specific_humidity,
+    omega_or_w: xr.DataArray,
+    horizon_hours: float = DEFAULT_HORIZON_HOURS,
+    *,
+    parcel: str = "surface_based",
+    cin_threshold: float = DEFAULT_CIN_THRESHOLD,
+    time_dim: str | None = None,
+    time_interpolation: str = "step",
+    tolerance_hours: float = 0.1,
+    most_unstable_depth: float = M.DEFAULT_MOST_UNSTABLE_DEPTH,
+) -> xr.Dataset:
+    """Hours of the diagnosed ascent until a low-level parcel saturates, and until it could start convection.
+
+    Parameters
+    ----------
+    temperature, specific_humidity, omega_or_w, time_dim, time_interpolation
+        As in :func:`lift_columns`.
+    horizon_hours : float
+        Longest duration searched [h] (24).
+    parcel : {"surface_based", "most_unstable"}
+        The air followed: that of the lowest valid level, or of the level of largest θe within
+        ``most_unstable_depth`` above it.
+    cin_threshold : float
+        [J kg-1], positive: "initiation potential" once CIN > −threshold (default
+        :data:`DEFAULT_CIN_THRESHOLD` = 25 J kg-1, common practice).
+    tolerance_hours : float
+        Width of the final bracket of the duration search [h].
+
+    Returns
+    -------
+    xarray.Dataset
+        ``hours_to_saturation`` — the duration after which the followed air reaches its LCL (0 if
+        saturated already); ``hours_to_initiation`` — the duration after which its CIN (from
+        where the air then is, in the lifted column) is weaker than the threshold, which includes
+        its having reached its LFC (CIN 0); both NaN where descent or too weak ascent does not get
+        there within the horizon, or where there is no LFC.  Also ``parcel_pressure``,
+        ``initial_cape``, ``initial_cin`` of the followed air.  Lazy on dask.
+
+    Raises
+    ------
+    MissingVariableError, UnitsError, GridError, InputDataError
+        As :func:`lift_columns`.
+
+    Notes
+    -----
+    *Saturation*: the followed air's path is computed in closed form layer by layer
+    (:mod:`qgforce.ascent`) up to its LCL pressure, which stays fixed while it rises dry; the time
+    at which it gets there is exact for that path (no search).
+
+    *Inhibition*: f(D) = CIN(D) + threshold, where CIN(D) is that of the followed air after D
+    hours of lifting of its whole column (the environment is lifted too).  f is evaluated at
+    the horizon; where it is satisfied, a coarse scan at 1/4, 1/2 and 3/4 of the horizon
+    brackets the earliest crossing and the Illinois variant of regula falsi refines it, every
+    column at once, to ``tolerance_hours`` (the result is the upper end of the final bracket, a
+    duration at which the condition holds).  A crossing within a quarter of the horizon that is
+    undone before the next scan point would be missed.
+
+    The tracked parcel is Lagrangian: the same air throughout.  With ω = 0 at the lowest level
+    (the boundary condition of the QG inversion) surface air does not rise, and its CIN falls only
+    through the lifting and cooling of the air above it.
+
+    This is a kinematic estimate of the large-scale contribution: mesoscale boundaries, diabatic
+    effects and surface heating are not in it.
+    """
+    if parcel not in PARCELS:
+        raise InputDataError(f"parcel must be one of {PARCELS}; found {parcel!r}")
+    if not (np.isfinite(horizon_hours) and horizon_hours > 0):
+        raise InputDataError(f"horizon_hours must be positive; found {horizon_hours}")
+    if not (np.isfinite(cin_threshold) and cin_threshold >= 0):
+        raise InputDataError(f"cin_threshold is a positive magnitude [J kg-1]; found {cin_threshold}")
+    if not tolerance_hours > 0:
+        raise InputDataError(f"tolerance_hours must be positive; found {tolerance_hours}")
+    t, q, om, levels, step_hours, core = _prepare(temperature, specific_humidity, omega_or_w, time_dim,
+                                                  time_interpolation, "hours_to_initiation")
+    ds = M._apply_columns(
+        _hours_kernel, [t, q, om], core, _HOURS_OUTPUTS,
+        kwargs={"levels": levels, "step_hours": step_hours, "interpolation": time_interpolation,
+                "horizon": float(horizon_hours), "parcel": parcel, "threshold": float(cin_threshold),
+                "tol": float(tolerance_hours), "mu_depth": float(most_unstable_depth)},
+    )
+    ds.attrs = {
+        "qgforce_parcel": parcel,
+        "qgforce_cin_threshold_J_kg": float(cin_threshold),
+        "qgforce_horizon_hours": float(horizon_hours),
+        "qgforce_tolerance_hours": float(tolerance_hours),
+        "qgforce_time_dim": str(time_dim),
+        "qgforce_time_interpolation": time_interpolation if time_dim else "steady",
+        "comment": _CAUTION,
+    }
+    return ds
