@@ -58,6 +58,8 @@ from .kinematics import (
     relative_vorticity,
     velocity_gradient,
 )
+from .ascent import hours_to_initiation, lift_columns
+from .moist import column_diagnostics, equivalent_potential_temperature, lifting_condensation_level, saturation_vapour_pressure
 from .omega import invert_omega, lift_over_time, select_domain
 from .selfcheck import run_selfcheck
 from .smoothing import five_point, gaussian, nine_point, smooth
@@ -131,6 +133,13 @@ __all__ = [
     "invert_omega",
     "select_domain",
     "lift_over_time",
+    # moist thermodynamics and column lifting
+    "saturation_vapour_pressure",
+    "lifting_condensation_level",
+    "equivalent_potential_temperature",
+    "column_diagnostics",
+    "lift_columns",
+    "hours_to_initiation",
     # checks and data
     "run_selfcheck",
     "cases",
