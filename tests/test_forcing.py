@@ -373,13 +373,13 @@ def test_two_right_hand_sides_agree_on_beta_plane(beta_plane_case):
     diffs = []
     for n, nz in REFINE:
         ds, (X, Y, P) = build(n, nz)
-        trad = F.omega_rhs(ds, "traditional", f0_latitude=45.0)
-        qvec = F.omega_rhs(ds, "qvector", f0_latitude=45.0)
+        t_form = F.omega_rhs(ds, "traditional", f0_latitude=45.0)
+        q_form = F.omega_rhs(ds, "qvector", f0_latitude=45.0)
         box = np.ix_(np.isin(ds.level.values, COMMON_LEVELS), interior(ds.y.values), interior(ds.x.values))
-        d = (trad.rhs_total - qvec.rhs_total).values[box]
-        diffs.append(np.abs(d).max() / np.abs(qvec.rhs_total.values[box]).max())
+        d = (t_form.rhs_total - q_form.rhs_total).values[box]
+        diffs.append(np.abs(d).max() / np.abs(q_form.rhs_total.values[box]).max())
         # the totals are the sums of the additive terms named in the attrs
-        for rhs in (trad, qvec):
+        for rhs in (t_form, q_form):
             terms = rhs.attrs["qgforce_terms"].split()
             np.testing.assert_allclose(sum(rhs[t] for t in terms).values, rhs.rhs_total.values, rtol=0,
                                        atol=1e-14 * np.abs(rhs.rhs_total.values).max())
@@ -633,9 +633,9 @@ def test_attrs_record_the_choices(beta_plane_case):
     assert ft.differential_vorticity_advection.attrs["qgforce_prefactor"].startswith("f0 = ")
     local = F.differential_vorticity_advection(ds, coriolis="local")
     assert local.attrs["qgforce_prefactor"] == "local f = 2 Omega sin(latitude)"
-    trad, qv = F.omega_rhs(ds), F.omega_rhs(ds, form="qvector")
-    assert trad.attrs["qgforce_form"] == "traditional"
-    assert trad.attrs["qgforce_terms"] == "differential_vorticity_advection thermal_advection_term"
+    t_form, qv = F.omega_rhs(ds), F.omega_rhs(ds, form="qvector")
+    assert t_form.attrs["qgforce_form"] == "traditional"
+    assert t_form.attrs["qgforce_terms"] == "differential_vorticity_advection thermal_advection_term"
     assert qv.attrs["qgforce_terms"] == "q_vector_forcing beta_term"
     assert qv.attrs["qgforce_partition"] == "q_vector_forcing=qn_forcing+qs_forcing"
     assert set(qv.data_vars) == {"q_vector_forcing", "beta_term", "qn_forcing", "qs_forcing", "rhs_total"}
