@@ -1515,6 +1515,7 @@ class DemoReport:
     description: str
     computed: str
     seconds: float
+    initiation: str = ""
 
     def text(self, caution: bool = True) -> str:
         """The printed summary of ``qgforce demo``."""
@@ -1523,6 +1524,7 @@ class DemoReport:
             f"qgforce demo: {self.description}",
             f"computed: {self.computed}",
             self.ascent.text(),
+            *([self.initiation] if self.initiation else []),
             f"wrote: {self.netcdf} ({len(self.results.data_vars)} variables, {size:.1f} MB) and "
             f"{len(self.maps)} PNG maps in {self.output_dir}/ (summary_<time>.png, <field>_<level>hPa_<time>.png)",
         ]
@@ -1625,6 +1627,8 @@ def run_demo(output_dir="qgforce_demo_output", *, overwrite: bool = False, progr
             if name in results.data_vars and p in results["level"].values:
                 jobs.append(_MapJob(name, p, t_index, ascent.time, output_dir / map_file_name(name, p, ascent.time)))
         maps = draw_maps(results, output_dir, overwrite=True, projection=projection, dpi=dpi, jobs=jobs)
+        initiation, extra = demo_initiation_map(ds, results, ascent.time, output_dir, dpi=dpi)
+        maps += extra
         bar.update(2)
     finally:
         bar.close()
@@ -1652,4 +1656,46 @@ def run_demo(output_dir="qgforce_demo_output", *, overwrite: bool = False, progr
         + ", with w and the static stability"
     )
     return DemoReport(output_dir=output_dir, netcdf=netcdf, maps=maps, results=results, ascent=ascent,
-                      description=description, computed=computed, seconds=_time.perf_counter() - start)
+                      description=description, computed=computed, seconds=_time.perf_counter() - start,
+                      initiation=initiation)
+
+
+def demo_initiation_map(ds: xr.Dataset, results: xr.Dataset, time, output_dir, *, horizon_hours: float = 24.0,
+                        dpi: float = 100) -> tuple[str, list]:
+    """Hours of the diagnosed QG ascent until the most-unstable parcel saturates, as a map and a line.
+
+    Calls :func:`qgforce.ascent.hours_to_initiation` with ``omega_total`` held constant from ``time``
+    (the most-unstable parcel of the lowest 300 hPa: with ω = 0 on the lower boundary of the
+    inversion, surface air is not lifted).  Returns the summary line and the list of PNG files
+    (empty, with an explanatory line, when the data carry no humidity).
+    """
+    from .ascent import hours_to_initiation
+    from .plot import map_field, save_figure
+
+    if "specific_humidity" not in ds:
+        return "column lifting: skipped (the data carry no specific humidity)", []
+    tdim = _time_dim(results)
+    sel = {tdim: time} if tdim else {}
+    hrs = hours_to_initiation(ds["temperature"].sel(sel), ds["specific_humidity"].sel(sel),
+                              results["omega_total"].sel(sel), horizon_hours=horizon_hours, parcel="most_unstable")
+    sat = hrs["hours_to_saturation"].load()
+    n = int(np.isfinite(sat).sum())
+    if n:
+        j, i = np.unravel_index(int(np.nanargmin(sat.values)), sat.shape)
+        lat, lon = float(sat["latitude"][j]), (float(sat["longitude"][i]) + 180.0) % 360.0 - 180.0
+        first = (f"{float(sat.values[j, i]):.1f} h at {abs(lat):.1f}°{'N' if lat >= 0 else 'S'} "
+                 f"{abs(lon):.1f}°{'E' if lon >= 0 else 'W'}")
+    else:
+        first = "none"
+    line = (f"column lifting (most-unstable parcel, this ascent held for up to {horizon_hours:g} h): {n} of {sat.size} "
+            f"columns saturate, the soonest {first}; a kinematic estimate of the large-scale part only")
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(7.0, 5.0), layout="constrained")
+    z500 = results["geopotential"].sel(sel).sel(level=50000.0) if "geopotential" in results and 50000.0 in results["level"] else None
+    map_field(sat.assign_attrs(long_name="hours of QG ascent to saturate the most-unstable parcel", units="h"),
+              ax=ax, contours=z500, symmetric=False, cmap="viridis_r", projection=False,
+              title=f"hours to saturation under the QG ascent, {_stamp(time)}")
+    path = save_figure(fig, Path(output_dir) / f"hours_to_saturation_{_stamp(time)}.png", dpi=dpi)
+    plt.close(fig)
+    return line, [path]
