@@ -51,8 +51,20 @@ __all__ = [
 LEVEL = "level"
 
 
-def _grid(obj, grid: Grid | None) -> Grid:
-    return grid if grid is not None else Grid.from_dataset(obj)
+def _grid(obj, grid: Grid | None, what: str | None = None, axes: str = "", points: int = 3) -> Grid:
+    """The grid of ``obj``; with ``what``, check that each of ``axes`` ("x", "y") has the
+    ``points`` a second-order stencil needs (3 along a periodic x)."""
+    g = grid if grid is not None else Grid.from_dataset(obj)
+    for axis in axes:
+        dim, n = (g.ydim, g.shape[0]) if axis == "y" else (g.xdim, g.shape[1])
+        need = 3 if (axis == "x" and g.periodic_x) else points
+        if n < need:
+            raise GridError(
+                f"{what} needs at least {need} points along {dim!r} (a second-order ∂/∂{axis}); the grid has {n}. "
+                + ("On a single row only x-derivatives can be taken (qgforce.ddx); " if axis == "y" else "")
+                + "select a larger domain for this diagnostic."
+            )
+    return g
 
 
 def _whole(da: xr.DataArray, dims) -> xr.DataArray:
@@ -169,21 +181,21 @@ def ddx(da: xr.DataArray, grid: Grid | None = None) -> xr.DataArray:
     >>> float(qgforce.ddx(t).sel(latitude=60.0, longitude=15.0)) > 0
     True
     """
-    g = _grid(da, grid)
+    g = _grid(da, grid, "∂/∂x", "x")
     out = apply_horizontal(partial(K.horizontal_gradient, component="x"), da, grid=g, blocked=False)
     return _label(out, _name(da, "ddx"), derived_units(da, length=-1), f"eastward derivative of {da.name}")
 
 
 def ddy(da: xr.DataArray, grid: Grid | None = None) -> xr.DataArray:
     """∂a/∂y [units m-1]: (1/a) ∂a/∂φ on the sphere, m ∂a/∂Y on projected grids."""
-    g = _grid(da, grid)
+    g = _grid(da, grid, "∂/∂y", "y")
     out = apply_horizontal(partial(K.horizontal_gradient, component="y"), da, grid=g, blocked=False)
     return _label(out, _name(da, "ddy"), derived_units(da, length=-1), f"northward derivative of {da.name}")
 
 
 def gradient(da: xr.DataArray, grid: Grid | None = None) -> tuple[xr.DataArray, xr.DataArray]:
     """Horizontal gradient (∂a/∂x, ∂a/∂y) in one pass."""
-    g = _grid(da, grid)
+    g = _grid(da, grid, "the horizontal gradient", "xy")
     gx, gy = apply_horizontal(K.horizontal_gradient, da, grid=g, n_out=2)
     u = derived_units(da, length=-1)
     return (
@@ -197,7 +209,7 @@ def divergence(u: xr.DataArray, v: xr.DataArray, grid: Grid | None = None) -> xr
 
     On the sphere (1/(a cos φ)) [∂u/∂λ + ∂(v cos φ)/∂φ]: the metric term −v tan φ/a is kept.
     """
-    g = _grid(u, grid)
+    g = _grid(u, grid, "the divergence", "xy")
     out = apply_horizontal(K.horizontal_divergence, u, v, grid=g)
     return _label(out, "divergence", derived_units(u, length=-1), "horizontal divergence",
                   {"standard_name": "divergence_of_wind"} if u.attrs.get("units") in ("m s-1", "m/s") else None)
@@ -209,7 +221,7 @@ def vorticity(u: xr.DataArray, v: xr.DataArray, grid: Grid | None = None) -> xr.
     On the sphere (1/(a cos φ)) [∂v/∂λ − ∂(u cos φ)/∂φ]: the metric term u tan φ/a is kept.
     Solid-body rotation u = U cos φ gives ζ = 2U sin φ / a exactly in the continuum.
     """
-    g = _grid(u, grid)
+    g = _grid(u, grid, "the vorticity", "xy")
     out = apply_horizontal(K.horizontal_curl, u, v, grid=g)
     return _label(out, "relative_vorticity", derived_units(u, length=-1), "relative vorticity",
                   {"standard_name": "atmosphere_relative_vorticity"})
@@ -223,7 +235,7 @@ def laplacian(da: xr.DataArray, grid: Grid | None = None) -> xr.DataArray:
     ∇²a = (1/(hx hy)) [∂ξ((hy/hx) ∂ξ a) + ∂η((hx/hy) ∂η a)], with half-point coefficients the
     mean of their neighbours.  On the sphere the spherical harmonic Y_l^m gives −l(l+1)Y/a².
     """
-    g = _grid(da, grid)
+    g = _grid(da, grid, "the Laplacian", "xy", points=4)
     # the row-metric fast path is already three C passes: cache blocking would only add overhead
     out = apply_horizontal(K.horizontal_laplacian, da, grid=g, blocked=g.kind == "projected")
     return _label(out, _name(da, "laplacian"), derived_units(da, length=-2), f"horizontal Laplacian of {da.name}")

@@ -298,6 +298,12 @@ class Grid:
     @property
     def spacing(self) -> tuple[np.ndarray, np.ndarray]:
         """Local grid spacing (dx, dy) in metres, each of shape (ny, nx)."""
+        for dim, coord in ((self.ydim, self.eta), (self.xdim, self.xi)):
+            if coord.size < 2:
+                raise GridError(
+                    f"grid spacing and area weights need at least 2 points along {dim!r}; the grid has "
+                    f"{coord.size}: a single row or column supports derivatives along the other axis only"
+                )
         dxi = np.gradient(self.xi)
         deta = np.gradient(self.eta)
         dx = np.broadcast_to(self.hx * dxi[None, :], self.shape)

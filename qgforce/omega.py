@@ -46,6 +46,10 @@ DEFAULT_SIGMA_FLOOR = 1e-7  # m2 Pa-2 s-2; about 1/20 of the mid-tropospheric me
 
 
 # ---------------------------------------------------------------------------- domain
+#: rows kept between an automatic inversion domain and the equatorial band (see select_domain)
+_BAND_MARGIN = 2
+
+
 def _equator_rows(lat: np.ndarray, band: float) -> np.ndarray:
     return np.abs(lat) < band
 
@@ -91,6 +95,12 @@ def select_domain(ds: xr.Dataset, domain=None, equator_mask: float | None = C.DE
                 if not runs:
                     raise GridError(f"every latitude lies within {band}° of the equator: QG omega cannot be inverted here")
                 j0, j1 = max(runs, key=lambda r: r[1] - r[0])
+                # the forcing is NaN on the first two rows outside the band as well (its stencils
+                # read two rows into the band's NaN geostrophic wind): keep the domain that far off,
+                # so that only its boundary rows, which the solver does not read, can touch them
+                j0, j1 = j0 + (_BAND_MARGIN if j0 > 0 else 0), j1 - (_BAND_MARGIN if j1 < lat.size else 0)
+                if j1 - j0 < 3:
+                    raise GridError(f"the latitudes outside {band}° of the equator leave fewer than 3 rows: pass domain=...")
                 warnings.warn(
                     f"the grid reaches within {band}° of the equator; the inversion domain is restricted to "
                     f"latitudes {lat[j0]:.2f}..{lat[j1 - 1]:.2f} (pass domain=... to choose)",
