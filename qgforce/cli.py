@@ -88,6 +88,12 @@ _OPTIONS = {o.dest: o for o in (
     _Option("dtype", ("--dtype",), "stored type of the data (computation is float64)", "choice",
             default="float32", choices=("float32", "float64")),
     _Option("overwrite", ("--overwrite",), "replace existing output files", "bool", default=False),
+    _Option("scheduler", ("--scheduler",), "address of a running dask.distributed scheduler (or a scheduler "
+            "file) to compute on", "text", metavar="ADDRESS"),
+    _Option("workers", ("--workers",), "compute on a local dask.distributed cluster of N worker processes",
+            "int", metavar="N"),
+    _Option("skip_bad_files", ("--skip-bad-files",), "leave out unreadable or truncated input files (they are "
+            "listed at the end) instead of stopping", "flag", default=False),
     _Option("names", ("--names",), "variable names of the file, e.g. temperature=ta,geopotential=zg",
             "names", metavar="CANONICAL=NAME,..."),
     _Option("summary", ("--summary",), "also one summary figure per time", "bool", default=True),
@@ -147,7 +153,8 @@ COMMANDS = {
         "is inverted on the region. The file is written atomically and never over an existing file without "
         "--overwrite.",
         ("files", "output", "fields", "levels", "times", "region", "form", "smoothing", "coriolis",
-         "f0_latitude", "omega", "dtype", "overwrite", "names", "quiet", "config"),
+         "f0_latitude", "omega", "dtype", "overwrite", "names", "scheduler", "workers", "skip_bad_files",
+         "quiet", "config"),
         {},
         "",
     ),
@@ -504,19 +511,26 @@ def _run_compute(opts: dict, argv: list) -> int:
         raise InputDataError("compute needs the output file: -o OUT.nc (or output = '...' in the config)")
     paths = W.expand_sources(_need_files(opts, "compute"))
     W.check_output_file(opts["output"], overwrite=bool(opts["overwrite"]), inputs=paths)
-    ds = W.open_inputs(paths, names=opts.get("names"))
+    from .stream import client_from
+
+    ds = W.open_inputs(paths, names=opts.get("names"), on_bad_file="skip" if opts.get("skip_bad_files") else "raise")
     try:
         parameters = {"files": " ".join(paths), **_parameters(opts, (
             "output", "fields", "levels", "times", "region", "form", "smoothing", "coriolis", "f0_latitude",
             "omega", "dtype", "names"))}
-        path, results = W.compute_to_netcdf(
-            ds, opts["output"], overwrite=bool(opts["overwrite"]), dtype=opts["dtype"],
-            command=f"{_PROG} " + shlex.join(argv), parameters=parameters, progress=_progress_wanted(opts["quiet"]),
-            fields=opts["fields"], times=opts.get("times"), levels=opts.get("levels"), omega=bool(opts["omega"]),
-            **_compute_options(opts),
-        )
+        with client_from(opts.get("scheduler"), opts.get("workers")):
+            path, results = W.compute_to_netcdf(
+                ds, opts["output"], overwrite=bool(opts["overwrite"]), dtype=opts["dtype"],
+                command=f"{_PROG} " + shlex.join(argv), parameters=parameters,
+                progress=_progress_wanted(opts["quiet"]) and not (opts.get("scheduler") or opts.get("workers")),
+                fields=opts["fields"], times=opts.get("times"), levels=opts.get("levels"), omega=bool(opts["omega"]),
+                **_compute_options(opts),
+            )
     finally:
         ds.close()
+    skipped = ds.attrs.get("qgforce_skipped_files")
+    if skipped:
+        print(f"{_PROG}: skipped unreadable input file(s): " + ", ".join(skipped.split()), file=sys.stderr)
     if not opts["quiet"]:
         names = list(results.data_vars)
         tdim = "time" if "time" in results.dims else None

@@ -287,7 +287,8 @@ def expand_sources(sources) -> list[str]:
     return [p for p in paths if not (p in seen or seen.add(p))]
 
 
-def open_inputs(sources, *, names: Mapping | None = None, chunks="auto", combine_dim: str | None = None) -> xr.Dataset:
+def open_inputs(sources, *, names: Mapping | None = None, chunks="auto", combine_dim: str | None = None,
+                on_bad_file: str = "raise") -> xr.Dataset:
     """Open model output for a job: the normalised dataset of :func:`qgforce.io.open_dataset`.
 
     Parameters
@@ -300,6 +301,9 @@ def open_inputs(sources, *, names: Mapping | None = None, chunks="auto", combine
         As for :func:`qgforce.io.open_dataset` (default lazy, one time step per chunk).
     combine_dim : str, optional
         Concatenate several files along this dimension in the order given.
+    on_bad_file : {"raise", "skip"}
+        Unreadable or truncated files: an error naming them, or leave them out (listed in
+        ``attrs["qgforce_skipped_files"]``); see :func:`qgforce.io.open_dataset`.
 
     Returns
     -------
@@ -321,7 +325,8 @@ def open_inputs(sources, *, names: Mapping | None = None, chunks="auto", combine
         # speed, not of the results, and nothing a user of a job can act on
         warnings.filterwarnings("ignore", message="The specified chunks separate the stored chunks",
                                 category=UserWarning)
-        ds = open_dataset(paths[0] if len(paths) == 1 else paths, names=names, chunks=chunks, combine_dim=combine_dim)
+        ds = open_dataset(paths[0] if len(paths) == 1 else paths, names=names, chunks=chunks, combine_dim=combine_dim,
+                          on_bad_file=on_bad_file)
     ds.attrs["qgforce_input_files"] = "\n".join(paths)
     return ds
 

@@ -427,3 +427,21 @@ def test_map_file_name_pattern():
     assert W.map_file_name("omega_total", 50000.0, t) == "omega_total_500hPa_20461119T0600.png"
     assert W.map_file_name("summary", None, t) == "summary_20461119T0600.png"
     assert W.map_file_name("frontogenesis", 92500.0, None) == "frontogenesis_925hPa.png"
+
+
+def test_one_truncated_file_among_many_refused_or_skipped(tmp_path, capsys):
+    # issue 6: a truncated download among good files is named; --skip-bad-files completes and reports it
+    with xr.open_dataset(DEMO) as ds:
+        for i in range(2):
+            ds.isel(time=[i]).load().to_netcdf(tmp_path / f"part{i}.nc")
+    (tmp_path / "part2.nc").write_bytes((tmp_path / "part1.nc").read_bytes()[:5000])
+    out = tmp_path / "out.nc"
+    args = ["compute", str(tmp_path / "part*.nc"), "-o", str(out), "--fields", "temperature_advection",
+            "--levels", "850", "--no-omega", "-q"]
+    assert main(args) == 2
+    err = capsys.readouterr().err
+    assert "part2.nc" in err and len(err.strip().splitlines()) == 1 and not out.exists()
+    assert main(args + ["--skip-bad-files"]) == 0
+    assert out.exists() and "part2.nc" in capsys.readouterr().err
+    with xr.open_dataset(out) as res:
+        assert res.sizes["time"] == 2
