@@ -143,7 +143,7 @@ def test_linear_in_time_omega_integrates_exactly():
     np.testing.assert_allclose(out.displaced_pressure.values, (p + shift) / 100.0, rtol=1e-12)
 
 
-@settings(max_examples=15, deadline=None)
+@settings(max_examples=15, deadline=None, derandomize=True)  # reproducible in CI
 @given(st.lists(st.floats(-1.0, 1.0), min_size=3, max_size=3), st.floats(1.0, 24.0))
 def test_parcels_stay_in_order(amps, hours):
     p, t, q = dry_stable(nz=41)
