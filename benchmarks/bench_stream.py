@@ -20,10 +20,12 @@ Figures:
     Per-run peaks, sizes on disk, and the zlib (level 1, shuffled float32) throughput of this
     machine on one output field, which bounds any compressed write done by one process.
 
-Configuration (module constants, recorded in the figures): the output is written as one file
-per ``STEPS_PER_FILE`` steps so that each worker computes, compresses and writes its own files
-(HDF5 serialises every write to one file, and zlib runs inside that lock), with zlib level
-``COMPLEVEL``; workers are ``PROCESSES``.
+Configuration (module constants, recorded in ``stream.config``): worker processes with one
+thread each; the output written as one file per step (``steps_per_file=1``), so that each
+worker computes and writes its own files (HDF5 serialises every write to one file); no
+compression (``complevel=0``): zlib runs inside HDF5's write at ``stream.zlib_mb_per_s`` on this
+machine, and a 0.5° step makes about 0.8 GB of float32 output, so the default ``complevel=1``
+of :func:`~qgforce.stream.write_results` costs more than the computation itself here.
 
 Run ``python benchmarks/bench_stream.py [--quick]``; set ``QGFORCE_BENCH_DIR`` to choose where
 the record is written (default: the system's temporary directory).  It is deleted afterwards.
@@ -50,7 +52,7 @@ LEVELS_HPA = [1000, 975, 950, 925, 900, 875, 850, 825, 800, 775, 750, 700, 650, 
 FULL = dict(resolution=0.5, steps=20)
 QUICK = dict(resolution=2.0, steps=6)
 STEPS_PER_FILE = 1
-COMPLEVEL = 1
+COMPLEVEL = 0
 PROCESSES = True
 
 

@@ -163,3 +163,6 @@ def test_client_from_address_and_choices(client):
     with pytest.raises(QGForceError, match="positive number"):
         with client_from(workers=0):
             pass
+    with pytest.raises(QGForceError, match="cannot connect to the dask scheduler at 'tcp://127.0.0.1:9'"):
+        with client_from(scheduler="tcp://127.0.0.1:9", connect_timeout=2):  # port 9 (discard): nobody listens
+            pass
