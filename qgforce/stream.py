@@ -37,6 +37,7 @@ from __future__ import annotations
 import contextlib
 import datetime
 import os
+import threading
 import uuid
 from collections.abc import Mapping
 from pathlib import Path
@@ -296,17 +297,50 @@ class _Sealed:
         self.dataset = dataset
 
 
+#: One part at a time per process: see :func:`_write_part`.
+_PART_LOCK = threading.Lock()
+
+
+def _close_cached_files() -> None:
+    """Close the files xarray keeps open in this process (its file cache), under the HDF5 locks."""
+    from xarray.backends.file_manager import FILE_CACHE
+    from xarray.backends.locks import HDF5_LOCK, NETCDFC_LOCK, combine_locks
+
+    with combine_locks([NETCDFC_LOCK, HDF5_LOCK]):
+        for key in list(FILE_CACHE):
+            handle = FILE_CACHE.pop(key, None)
+            if handle is not None:
+                handle.close()
+
+
 def _write_part(sealed: _Sealed, tmp: str, enc: dict) -> str:
     """Fill one output file (created beforehand), computed and written by one task: on a cluster
-    the files, and their compression, proceed in parallel."""
+    the files, and their compression, proceed in parallel.
+
+    Notes
+    -----
+    Without the two measures here, a worker process that wrote several parts in turn crashed
+    with a segmentation fault inside HDF5 after a few of them (netCDF4 1.7.5, distributed
+    2026.8; in one process, without a cluster, it never did).  The likely cause: the input
+    datasets arrive pickled, and their HDF5 locks come back as locks of their own (xarray's
+    serializable locks are keyed by a token drawn in the process that made them), so input
+    files closed when the worker releases a finished task, from another thread, are not
+    serialised with the next task's HDF5 calls.  So the input files a part read are closed
+    before its task ends, from the task's own thread, and parts run one at a time within a
+    process (the local cluster of :func:`client_from` has one thread per worker process, so
+    nothing is lost there).
+    """
     import dask
 
-    try:
-        with dask.config.set(scheduler="synchronous"):  # this part's chunks, one after another
-            _fill_blocks(sealed.dataset, Path(tmp), enc, None)
-    except BaseException:
-        _remove([tmp])
-        raise
+    with _PART_LOCK:
+        try:
+            with dask.config.set(scheduler="synchronous"):  # this part's chunks, one after another
+                _fill_blocks(sealed.dataset, Path(tmp), enc, None)
+        except BaseException:
+            _remove([tmp])
+            raise
+        finally:
+            _close_cached_files()
     return tmp
 
 
