@@ -22,13 +22,17 @@ Figures:
 
 Configuration (module constants, recorded in ``stream.config``): worker processes with one
 thread each; the output written as one file per step (``steps_per_file=1``), so that each
-worker computes and writes its own files (HDF5 serialises every write to one file); no
-compression (``complevel=0``): zlib runs inside HDF5's write at ``stream.zlib_mb_per_s`` on this
-machine, and a 0.5° step makes about 0.8 GB of float32 output, so the default ``complevel=1``
-of :func:`~qgforce.stream.write_results` costs more than the computation itself here.
+worker computes and writes its own files (HDF5 serialises every write to one file); the default
+compression of :func:`~qgforce.stream.write_results` (``complevel=1``), what a user gets.  zlib
+runs inside HDF5's write at ``stream.zlib_mb_per_s`` on this machine and a 0.5° step makes about
+0.7 GB of float32 output, so compression costs more than the computation here; it parallelises
+over the workers.  Without it (``QGFORCE_BENCH_COMPLEVEL=0``) a step is three times faster but
+the write to disk, shared by the workers, bounds the speed-up (measured 2026-12-02: 7.6 and
+4.9 s per step, 1.55×, against 23.6 and 13.9 s, 1.70×, compressed).
 
 Run ``python benchmarks/bench_stream.py [--quick]``; set ``QGFORCE_BENCH_DIR`` to choose where
 the record is written (default: the system's temporary directory).  It is deleted afterwards.
+``QGFORCE_BENCH_COMPLEVEL=N`` sets the compression level of the write (default 1).
 """
 
 from __future__ import annotations
@@ -52,7 +56,7 @@ LEVELS_HPA = [1000, 975, 950, 925, 900, 875, 850, 825, 800, 775, 750, 700, 650, 
 FULL = dict(resolution=0.5, steps=20)
 QUICK = dict(resolution=2.0, steps=6)
 STEPS_PER_FILE = 1
-COMPLEVEL = 0
+COMPLEVEL = int(os.environ.get("QGFORCE_BENCH_COMPLEVEL", "1"))  # 0..9; 1 is write_results' default
 PROCESSES = True
 
 

@@ -591,9 +591,10 @@ _HANDLERS = {"demo": _run_demo, "inspect": _run_inspect, "compute": _run_compute
 
 
 def _error_line(exc: BaseException) -> str:
-    """One line for a user error, with the library's ``names=`` hint spelled as the option."""
+    """One line for a user error, with the library's ``names=`` and ``on_bad_file=`` hints spelled as the options."""
     text = " ".join(str(exc).split()) or type(exc).__name__
     text = re.sub(r"pass names=\{'(\w+)': '[^']*'\}(?: to open_dataset)?", r"pass --names \1=<name in the file>", text)
+    text = text.replace("pass on_bad_file='skip'", "pass --skip-bad-files (compute)")
     return text
 
 

@@ -73,7 +73,14 @@ SUMMARY_FIELDS = (
     "q_vector_forcing",
     "frontogenesis",
     "omega_total",
+    "hours_to_saturation",
 )
+
+#: Colour settings of summary panels that are not signed forcing fields (the others: automatic).
+_PANEL_STYLE = {
+    "hours_to_saturation": dict(cmap="viridis_r", symmetric=False),
+    "hours_to_initiation": dict(cmap="viridis_r", symmetric=False),
+}
 
 #: Pressure [Pa] at which :func:`summary_figure` shows a field by default.  Temperature
 #: advection and frontogenesis are lower-tropospheric signals (850 hPa); the forcing terms of
@@ -785,7 +792,7 @@ def _select_time(results, time):
     return results
 
 
-def summary_figure(results, *, time=None, level=None, fields=None, omega_level=None, ncols=3, figsize=None,
+def summary_figure(results, *, time=None, level=None, fields=None, omega_level=None, ncols=None, figsize=None,
                    projection=None):
     """Multi-panel figure of the main QG forcing terms and ω for one time.
 
@@ -808,7 +815,7 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
         Pressure [Pa, or hPa if below 2000] of the ω and w panels (``omega``, ``w``, ``omega_*``,
         ``w_*``); default 500 hPa.
     ncols : int, optional
-        Panels per row.
+        Panels per row (default 3; 4 for 7 or 8 panels).
     figsize : (float, float), optional
         Inches; default 4.3 × 4.0 per panel.
     projection : cartopy.crs.Projection or False, optional
@@ -836,6 +843,8 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
             f"summary_figure found none of the fields {list(wanted)} in the results; they contain "
             f"{sorted(map(str, results.data_vars))}. Pass fields=[...] naming variables to show."
         )
+    if ncols is None:
+        ncols = 4 if len(present) in (7, 8) else 3
     if int(ncols) != ncols or ncols < 1:
         raise InputDataError(f"ncols must be a positive integer; found {ncols!r}")
     ds = _select_time(results, time)
@@ -860,9 +869,12 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
         vec = None
         if name == "q_vector_forcing" and "q_vector_x" in ds.data_vars and "q_vector_y" in ds.data_vars:
             vec = (_at_level(ds["q_vector_x"], p), _at_level(ds["q_vector_y"], p))
+        style = {"symmetric": None, "cmap": None, **_PANEL_STYLE.get(name, {})}
+        title = PANEL_TITLES.get(name, name.replace("_", " "))
+        if "level" in ds[name].dims:
+            title += f" — {p / 100.0:g} hPa"
         art = _draw_map(ax, field, contours=geop, contour_interval=None, vectors=vec, vector_stride=None,
-                        robust_percentile=98, symmetric=None, cmap=None,
-                        title=f"{PANEL_TITLES.get(name, name.replace('_', ' '))} — {p / 100.0:g} hPa", coastlines=True)
+                        robust_percentile=98, title=title, coastlines=True, **style)
         if art.colorbar is not None:  # the title names the field: the colour bar carries only its units
             full = art.colorbar.ax.get_xlabel() or art.colorbar.ax.get_ylabel()
             art.colorbar.set_label(full[full.rfind("["):] if "[" in full else full, fontsize=8)
@@ -883,6 +895,8 @@ PANEL_TITLES = {
     "frontogenesis": "frontogenesis",
     "omega_total": "QG ω (all terms)",
     "w_total": "QG w (all terms)",
+    "hours_to_saturation": "hours of QG ascent to saturation",
+    "hours_to_initiation": "hours of QG ascent to initiation potential",
 }
 
 

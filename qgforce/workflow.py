@@ -29,6 +29,20 @@ References
 ----------
 Eaton, B. et al., 2023: *NetCDF Climate and Forecast (CF) Metadata Conventions*, version 1.11
     (section 2.6 attributes: Conventions, title, history, source).
+Column lifting
+--------------
+When the input carries specific humidity and ω is inverted, the results also offer
+:data:`LIFTING_FIELDS` (hours of the diagnosed ascent to saturation and to initiation potential,
+the followed parcel's pressure, CAPE and CIN; :func:`qgforce.ascent.hours_to_initiation`), on
+the inversion domain.  With ω = 0 on the lower boundary of the inversion, surface air is never
+lifted, so the air followed is the most-unstable parcel of the lowest 300 hPa.  A kinematic
+estimate of the large-scale contribution only: horizontal advection, mesoscale boundaries,
+diabatic effects and surface heating are not in it.
+
+References
+----------
+Eaton, B. et al., 2023: *NetCDF Climate and Forecast (CF) Metadata Conventions*, version 1.11
+    (section 2.6 attributes: Conventions, title, history, source).
 Holton, J. R. and G. J. Hakim, 2013: *An Introduction to Dynamic Meteorology*, 5th ed., §6.4.
 """
 
@@ -56,6 +70,8 @@ from .errors import InputDataError, MissingVariableError, QGForceError
 __all__ = [
     # constants
     "CAUTION_TEXT",
+    "LIFTING_FIELDS",
+    "LIFTING_HORIZON_HOURS",
     "DEMO_MARKER",
     "DEMO_RESULTS_FILE",
     "MAP_NAME_PATTERN",
@@ -115,6 +131,14 @@ FORMS = ("qvector", "traditional", "both")
 _FORM_SHARED = ("omega_total", "w_total", "solver_residual", "solver_iterations", "omega_boundary",
                 "sigma_floored_points")
 _FORM_INDEPENDENT = ("static_stability",)
+
+#: Outputs of :func:`qgforce.ascent.hours_to_initiation` that :func:`build_results` offers (the
+#: column-lifting fields), computed from the primary form's ``omega_total`` held constant from
+#: each time, for the most-unstable parcel of the lowest 300 hPa, over :data:`LIFTING_HORIZON_HOURS`.
+LIFTING_FIELDS = ("hours_to_saturation", "hours_to_initiation", "parcel_pressure", "initial_cape", "initial_cin")
+
+#: Horizon [h] of the column-lifting fields of :func:`build_results`.
+LIFTING_HORIZON_HOURS = 24.0
 
 #: Vector pairs drawn on the map of a forcing field (presentation only).
 _MAP_VECTORS = {
@@ -482,6 +506,8 @@ def _capabilities(ds: xr.Dataset) -> list:
         ("QG omega, traditional form (omega per term, w)", lambda d: O.invert_omega(d, form="traditional")),
         ("QG omega with the model's omega on the boundary",
          lambda d: O.invert_omega(d, form="qvector", boundary="model")),
+        ("column lifting by QG omega (hours to saturation and to initiation potential, parcel CAPE and CIN)",
+         lambda d: build_results(d, fields=["hours_to_saturation"], levels=None)),
     )
     out = []
     for what, probe in probes:
@@ -652,6 +678,32 @@ def _crop(ds: xr.Dataset, box: dict | None) -> xr.Dataset:
     return ds if box is None else ds.sel({d: slice(*v) for d, v in box.items()})
 
 
+def _lifting_fields(ds: xr.Dataset, columns: dict, form: str, omega: bool) -> xr.Dataset:
+    """The :data:`LIFTING_FIELDS` from ``columns[form]``, the whole-column ``omega_total`` of ``form``
+    (see the module docstring)."""
+    from .ascent import hours_to_initiation
+
+    if not omega:
+        raise InputDataError("the column-lifting fields (" + ", ".join(LIFTING_FIELDS) + ") lift the columns by the "
+                             "inverted omega, but the inversion is switched off (--no-omega, omega=False)")
+    if "specific_humidity" not in ds:
+        raise MissingVariableError(
+            "the column-lifting fields (" + ", ".join(LIFTING_FIELDS) + ") need specific humidity, which the input "
+            "lacks; the other fields do not need it")
+    if form not in columns:
+        raise MissingVariableError(f"the column-lifting fields need omega_total of the {form} form, which could not "
+                                   "be computed")
+    om = columns[form]
+    temperature, humidity, om = xr.align(ds["temperature"], ds["specific_humidity"], om, join="inner",
+                                         exclude=["level"])
+    hrs = hours_to_initiation(temperature, humidity, om, horizon_hours=LIFTING_HORIZON_HOURS, parcel="most_unstable")
+    out = hrs[list(LIFTING_FIELDS)]
+    for name in out.data_vars:
+        out[name].attrs.update(qgforce_omega=f"omega_total ({form} form), held constant from each time",
+                               qgforce_lifting_horizon_hours=LIFTING_HORIZON_HOURS)
+    return out
+
+
 def _suffixed(om: xr.Dataset, form: str, primary: bool) -> xr.Dataset:
     """Outputs of one form under their result names (see the module docstring)."""
     if primary:
@@ -753,6 +805,7 @@ def build_results(
     other_forms = [f for f in ("qvector", "traditional") if f not in primary_forms]
     groups: dict[str, xr.Dataset] = {}
     failures: dict[str, QGForceError] = {}
+    columns: dict[str, xr.DataArray] = {}
     without_wind: list = []
 
     def build(group: str):
@@ -768,8 +821,11 @@ def build_results(
                     out = out.drop_vars(without_wind)
                     failures["frontogenesis"] = MissingVariableError(
                         "frontogenesis by the full wind needs u and v, which the input lacks")
+            elif group == "lifting":
+                out = _lifting_fields(ds, columns, primary_forms[0], omega)
             else:
                 om = O.invert_omega(ds, form=group, domain=domain, **common)
+                columns[group] = om["omega_total"]  # every level: the lifting fields need the whole column
                 if levels_pa is not None:
                     om = om.sel(level=levels_pa)
                 for name in om.data_vars:
@@ -783,6 +839,9 @@ def build_results(
     if omega:
         for f in primary_forms:
             build(f)
+    if (every and omega) or set(LIFTING_FIELDS) & set(wanted) \
+            or (set(LIFTING_FIELDS) & set(optional_fields) and "specific_humidity" in ds and omega):
+        build("lifting")
 
     def available() -> dict:
         names = {}
@@ -806,6 +865,8 @@ def build_results(
         for name in missing:  # say why a known kind of field is not there
             if name in without_wind:
                 raise failures["frontogenesis"]
+            if name in LIFTING_FIELDS and "lifting" in failures:
+                raise failures["lifting"]
             if name.startswith(("omega_", "w_", "solver_", "sigma_")) or name in _FORM_INDEPENDENT:
                 if not omega:
                     raise InputDataError(f"field {name!r} is an omega output but the inversion is switched off "
@@ -1067,11 +1128,13 @@ def map_file_name(field_name: str, level_pa: float | None = None, time=None) -> 
     'omega_total_500hPa_20461119T0600.png'
     >>> map_file_name("summary", None, np.datetime64("2046-11-19T06:00"))
     'summary_20461119T0600.png'
+    >>> map_file_name("hours_to_saturation", None, np.datetime64("2046-11-19T06:00"))
+    'hours_to_saturation_20461119T0600.png'
     """
     stamp = None if time is None else _stamp(time)
     if field_name == "summary":
         return "summary.png" if stamp is None else SUMMARY_NAME_PATTERN.format(time=stamp)
-    name = f"{field_name}_{_hpa(level_pa)}hPa"
+    name = field_name if level_pa is None else f"{field_name}_{_hpa(level_pa)}hPa"  # None: a field without levels
     return f"{name}.png" if stamp is None else f"{name}_{stamp}.png"
 
 
@@ -1105,7 +1168,7 @@ def plan_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summ
         From :func:`build_results` (may be lazy).
     output_dir : str or os.PathLike
     fields : sequence of str, optional
-        Fields with a level and the horizontal dims; default those of
+        Fields on the horizontal dims, with a level or single-level; default those of
         :data:`qgforce.plot.SUMMARY_FIELDS` that are present.
     levels : sequence, optional
         Pressures (hPa) for every field; default per field the level of its summary panel.
@@ -1134,9 +1197,10 @@ def plan_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summ
                 f"field {n!r} is not in the results; they hold {', '.join(map(str, results.data_vars))}")
         dims = set(results[n].dims)
         extra = dims - {"level", *horizontal} - ({tdim} if tdim else set())
-        if not {"level", *horizontal} <= dims or extra:
+        if not set(horizontal) <= dims or extra:
             raise InputDataError(
-                f"field {n!r} has dims {results[n].dims}; a map field needs level and {' and '.join(horizontal)}"
+                f"field {n!r} has dims {results[n].dims}; a map field needs {' and '.join(horizontal)} (and level, "
+                "unless it is a single-level field)"
                 + (f", and no other dimension than time (select {', '.join(sorted(extra))} first)" if extra else "")
             )
     if summary and not any(n in results.data_vars for n in plot.SUMMARY_FIELDS):
@@ -1149,6 +1213,9 @@ def plan_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summ
         per_field = {n: list(chosen) for n in names}
     else:
         per_field = _default_map_levels(results, names)
+    for n in names:  # single-level fields (the column-lifting ones): one map per time
+        if "level" not in results[n].dims:
+            per_field[n] = [None]
     steps = [(i, results[tdim].values[i]) for i in range(results.sizes[tdim])] if tdim else [(None, None)]
     jobs = []
     for i, t in steps:
@@ -1189,6 +1256,12 @@ def _draw_one(step: xr.Dataset, job: _MapJob, projection):
 
     if job.field == "summary":
         return plot.summary_figure(step, projection=projection)
+    if job.level is None:  # a single-level field, under the geopotential of the summary's default level
+        contours = None
+        if "geopotential" in step.data_vars:
+            contours = step["geopotential"].sel(level=plot.SUMMARY_DEFAULT_LEVEL, method="nearest")
+        return plot.map_field(step[job.field], contours=contours, projection=projection,
+                              **plot._PANEL_STYLE.get(job.field, {})).ax.figure
     da = step[job.field].sel(level=job.level)
     if da.attrs.get("units") == "K m-1 s-1":
         da = F.to_display_units(da)
@@ -1637,7 +1710,8 @@ def run_demo(output_dir="qgforce_demo_output", *, overwrite: bool = False, progr
         bar.update(2)
     finally:
         bar.close()
-    n_forcing = sum(1 for n in results.data_vars if results[n].attrs.get("qgforce_form") is None)
+    n_forcing = sum(1 for n in results.data_vars
+                    if results[n].attrs.get("qgforce_form") is None and n not in LIFTING_FIELDS)
     inverted = []
     for name in results.data_vars:
         if str(name).startswith("omega_total"):
@@ -1659,6 +1733,8 @@ def run_demo(output_dir="qgforce_demo_output", *, overwrite: bool = False, progr
         f"thermal advection term, Q-vectors with their Q_n/Q_s partition, beta term, frontogenesis and its parts, "
         f"geostrophic wind); QG omega inverted term by term in " + " and in ".join(inverted)
         + ", with w and the static stability"
+        + ("; columns lifted by that omega (hours to saturation and to initiation potential, parcel CAPE and CIN)"
+           if "hours_to_saturation" in results.data_vars else "")
     )
     return DemoReport(output_dir=output_dir, netcdf=netcdf, maps=maps, results=results, ascent=ascent,
                       description=description, computed=computed, seconds=_time.perf_counter() - start,
@@ -1681,9 +1757,12 @@ def demo_initiation_map(ds: xr.Dataset, results: xr.Dataset, time, output_dir, *
         return "column lifting: skipped (the data carry no specific humidity)", []
     tdim = _time_dim(results)
     sel = {tdim: time} if tdim else {}
-    hrs = hours_to_initiation(ds["temperature"].sel(sel), ds["specific_humidity"].sel(sel),
-                              results["omega_total"].sel(sel), horizon_hours=horizon_hours, parcel="most_unstable")
-    sat = hrs["hours_to_saturation"].load()
+    if "hours_to_saturation" in results and horizon_hours == LIFTING_HORIZON_HOURS:  # computed by build_results
+        sat = results["hours_to_saturation"].sel(sel).load()
+    else:
+        hrs = hours_to_initiation(ds["temperature"].sel(sel), ds["specific_humidity"].sel(sel),
+                                  results["omega_total"].sel(sel), horizon_hours=horizon_hours, parcel="most_unstable")
+        sat = hrs["hours_to_saturation"].load()
     n = int(np.isfinite(sat).sum())
     if n:
         j, i = np.unravel_index(int(np.nanargmin(sat.values)), sat.shape)

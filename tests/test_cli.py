@@ -376,8 +376,9 @@ def test_maps_names_pixel_sizes_and_refusal(small, tmp_path, capsys):
     plt.close(probe.ax.figure)
     for name in (f"omega_total_500hPa_{t}.png", f"frontogenesis_500hPa_{t}.png"):
         assert mpimg.imread(out / name).shape[:2] == (round(333 * h_in / w_in), 333)
-    # ... and the summary's: 6 panels, 3 per row, 4.3 x 4.0 in each plus 0.5 in (plot.summary_figure docstring)
-    assert mpimg.imread(out / f"summary_{t}.png").shape[:2] == (round(333 * (2 * 4.0 + 0.5) / (3 * 4.3)), 333)
+    # ... and the summary's: 7 panels (the six forcing/omega panels and hours to saturation), 4 per row,
+    # 4.3 x 4.0 in each plus 0.5 in (plot.summary_figure docstring)
+    assert mpimg.imread(out / f"summary_{t}.png").shape[:2] == (round(333 * (2 * 4.0 + 0.5) / (4 * 4.3)), 333)
     before = {p.name: p.read_bytes() for p in out.iterdir()}
     assert main(argv) == 2  # refusal to overwrite, checked before anything is drawn
     assert_one_error_line(capsys.readouterr().err, "--overwrite")
@@ -441,7 +442,58 @@ def test_one_truncated_file_among_many_refused_or_skipped(tmp_path, capsys):
     assert main(args) == 2
     err = capsys.readouterr().err
     assert "part2.nc" in err and len(err.strip().splitlines()) == 1 and not out.exists()
+    assert "--skip-bad-files" in err and "on_bad_file" not in err  # the advice names the option, not the argument
     assert main(args + ["--skip-bad-files"]) == 0
     assert out.exists() and "part2.nc" in capsys.readouterr().err
     with xr.open_dataset(out) as res:
         assert res.sizes["time"] == 2
+
+
+# ============================================================================ column lifting in the jobs
+def test_lifting_fields_in_compute_and_maps(small, tmp_path, capsys):
+    """The column-lifting fields come out of the jobs as hours_to_initiation gives them.
+
+    Reference: :func:`qgforce.ascent.hours_to_initiation` itself (tested against Bolton 1980 and
+    the closed-form LCL in tests/test_ascent.py), called here directly on the same ω: the job
+    must add bookkeeping only.  The whole column of ω is used even when --levels keeps one.
+    """
+    import warnings
+
+    from qgforce.ascent import hours_to_initiation
+
+    with xr.open_dataset(small) as raw:
+        ds = qgforce.io.normalize(raw.load())
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = W.build_results(ds, fields=["hours_to_saturation", "initial_cin"], levels=[500])
+        om = qgforce.omega.invert_omega(ds)["omega_total"]
+        direct = hours_to_initiation(ds["temperature"], ds["specific_humidity"], om, W.LIFTING_HORIZON_HOURS,
+                                     parcel="most_unstable")
+    assert list(res.data_vars) == ["hours_to_saturation", "initial_cin"]
+    assert "level" not in res["hours_to_saturation"].dims
+    xr.testing.assert_allclose(res["hours_to_saturation"].reset_coords(drop=True),
+                               direct["hours_to_saturation"].reset_coords(drop=True))
+    assert np.isfinite(res["hours_to_saturation"]).any()  # the demo's ascent saturates some columns
+    assert res["hours_to_saturation"].attrs["qgforce_lifting_horizon_hours"] == W.LIFTING_HORIZON_HOURS
+    # no humidity: a clear refusal naming the variable, and "all" still works without them
+    dry = ds.drop_vars("specific_humidity")
+    with pytest.raises(qgforce.errors.MissingVariableError, match="need specific humidity"):
+        W.build_results(dry, fields=["hours_to_saturation"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        everything = W.build_results(dry, fields="all", levels=[500])
+    assert "hours_to_saturation" not in everything and "specific humidity" in everything.attrs["qgforce_not_computed"]
+    with pytest.raises(InputDataError, match="inversion is switched off"):
+        W.build_results(ds, fields=["hours_to_initiation"], omega=False)
+    # the command line: one single-level map per time, named without a level
+    out = tmp_path / "maps"
+    assert main(["maps", str(small), "--output-dir", str(out), "--fields", "hours_to_saturation", "--no-summary",
+                 "--projection", "plain", "--dpi", "40", "-q"]) == 0
+    assert files_in(out) == {f"hours_to_saturation_{stamp(t)}.png" for t in ds["time"].values}
+    nc = tmp_path / "lift.nc"
+    assert main(["compute", str(small), "-o", str(nc), "--fields", "hours_to_saturation,hours_to_initiation",
+                 "-q"]) == 0
+    with xr.open_dataset(nc) as back:
+        assert back["hours_to_saturation"].attrs["units"] == "h"
+        np.testing.assert_allclose(back["hours_to_saturation"].values, direct["hours_to_saturation"].values,
+                                   rtol=1e-6, atol=1e-4)  # float32 on disk

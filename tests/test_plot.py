@@ -563,7 +563,7 @@ def test_summary_figure_with_cartopy_offline(offline_cartopy, tmp_path):
 
 def test_summary_figure_errors():
     ds = summary_dataset()[["geopotential"]]
-    with pytest.raises(MissingVariableError, match=r"none of the fields \['temperature_advection'.*'omega_total'\]"):
+    with pytest.raises(MissingVariableError, match=r"none of the fields \['temperature_advection'.*'omega_total', 'hours_to_saturation'\]"):
         plot.summary_figure(ds, projection=False)
     with pytest.raises(InputDataError, match="ncols must be a positive integer"):
         plot.summary_figure(summary_dataset(), ncols=0, projection=False)
