@@ -506,8 +506,8 @@ def _capabilities(ds: xr.Dataset) -> list:
         ("QG omega, traditional form (omega per term, w)", lambda d: O.invert_omega(d, form="traditional")),
         ("QG omega with the model's omega on the boundary",
          lambda d: O.invert_omega(d, form="qvector", boundary="model")),
-        ("column lifting by QG omega (hours to saturation and to initiation potential, parcel CAPE and CIN)",
-         lambda d: build_results(d, fields=["hours_to_saturation"], levels=None)),
+        ("column lifting by the Q-vector-form omega above (hours to saturation and to initiation potential, "
+         "parcel CAPE and CIN)", _lifting_inputs),
     )
     out = []
     for what, probe in probes:
@@ -678,6 +678,15 @@ def _crop(ds: xr.Dataset, box: dict | None) -> xr.Dataset:
     return ds if box is None else ds.sel({d: slice(*v) for d, v in box.items()})
 
 
+def _lifting_inputs(ds: xr.Dataset) -> bool:
+    """True when ``ds`` has the humidity the column-lifting fields need; else a clear MissingVariableError."""
+    if "specific_humidity" not in ds:
+        raise MissingVariableError(
+            "the column-lifting fields (" + ", ".join(LIFTING_FIELDS) + ") need specific humidity, which the input "
+            "lacks; the other fields do not need it")
+    return True
+
+
 def _lifting_fields(ds: xr.Dataset, columns: dict, form: str, omega: bool) -> xr.Dataset:
     """The :data:`LIFTING_FIELDS` from ``columns[form]``, the whole-column ``omega_total`` of ``form``
     (see the module docstring)."""
@@ -686,10 +695,7 @@ def _lifting_fields(ds: xr.Dataset, columns: dict, form: str, omega: bool) -> xr
     if not omega:
         raise InputDataError("the column-lifting fields (" + ", ".join(LIFTING_FIELDS) + ") lift the columns by the "
                              "inverted omega, but the inversion is switched off (--no-omega, omega=False)")
-    if "specific_humidity" not in ds:
-        raise MissingVariableError(
-            "the column-lifting fields (" + ", ".join(LIFTING_FIELDS) + ") need specific humidity, which the input "
-            "lacks; the other fields do not need it")
+    _lifting_inputs(ds)
     if form not in columns:
         raise MissingVariableError(f"the column-lifting fields need omega_total of the {form} form, which could not "
                                    "be computed")
