@@ -57,6 +57,7 @@ __all__ = [
     "SUMMARY_PANEL_LEVELS",
     "SUMMARY_DEFAULT_LEVEL",
     "PANEL_TITLES",
+    "PANEL_STYLES",
     "CAUTION",
     "colour_limits",
     "map_field",
@@ -77,7 +78,7 @@ SUMMARY_FIELDS = (
 )
 
 #: Colour settings of summary panels that are not signed forcing fields (the others: automatic).
-_PANEL_STYLE = {
+PANEL_STYLES = {
     "hours_to_saturation": dict(cmap="viridis_r", symmetric=False),
     "hours_to_initiation": dict(cmap="viridis_r", symmetric=False),
 }
@@ -869,7 +870,7 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
         vec = None
         if name == "q_vector_forcing" and "q_vector_x" in ds.data_vars and "q_vector_y" in ds.data_vars:
             vec = (_at_level(ds["q_vector_x"], p), _at_level(ds["q_vector_y"], p))
-        style = {"symmetric": None, "cmap": None, **_PANEL_STYLE.get(name, {})}
+        style = {"symmetric": None, "cmap": None, **PANEL_STYLES.get(name, {})}
         title = PANEL_TITLES.get(name, name.replace("_", " "))
         if "level" in ds[name].dims:
             title += f" — {p / 100.0:g} hPa"

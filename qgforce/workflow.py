@@ -25,10 +25,6 @@ for, the outputs of the second form that carry the same name in both forms get t
 suffix (``omega_total_traditional``, ``w_total_traditional``, ...); the static stability, which
 does not depend on the form, is kept once.
 
-References
-----------
-Eaton, B. et al., 2023: *NetCDF Climate and Forecast (CF) Metadata Conventions*, version 1.11
-    (section 2.6 attributes: Conventions, title, history, source).
 Column lifting
 --------------
 When the input carries specific humidity and ω is inverted, the results also offer
@@ -1267,7 +1263,7 @@ def _draw_one(step: xr.Dataset, job: _MapJob, projection):
         if "geopotential" in step.data_vars:
             contours = step["geopotential"].sel(level=plot.SUMMARY_DEFAULT_LEVEL, method="nearest")
         return plot.map_field(step[job.field], contours=contours, projection=projection,
-                              **plot._PANEL_STYLE.get(job.field, {})).ax.figure
+                              **plot.PANEL_STYLES.get(job.field, {})).ax.figure
     da = step[job.field].sel(level=job.level)
     if da.attrs.get("units") == "K m-1 s-1":
         da = F.to_display_units(da)
@@ -1710,9 +1706,11 @@ def run_demo(output_dir="qgforce_demo_output", *, overwrite: bool = False, progr
         for name, p in singles:
             if name in results.data_vars and p in results["level"].values:
                 jobs.append(_MapJob(name, p, t_index, ascent.time, output_dir / map_file_name(name, p, ascent.time)))
+        if "hours_to_saturation" in results.data_vars:  # a single-level field: no level in its name
+            jobs.append(_MapJob("hours_to_saturation", None, t_index, ascent.time,
+                                output_dir / map_file_name("hours_to_saturation", None, ascent.time)))
         maps = draw_maps(results, output_dir, overwrite=True, projection=projection, dpi=dpi, jobs=jobs)
-        initiation, extra = demo_initiation_map(ds, results, ascent.time, output_dir, dpi=dpi)
-        maps += extra
+        initiation = _initiation_line(results, ascent.time)
         bar.update(2)
     finally:
         bar.close()
@@ -1747,28 +1745,13 @@ def run_demo(output_dir="qgforce_demo_output", *, overwrite: bool = False, progr
                       initiation=initiation)
 
 
-def demo_initiation_map(ds: xr.Dataset, results: xr.Dataset, time, output_dir, *, horizon_hours: float = 24.0,
-                        dpi: float = 100) -> tuple[str, list]:
-    """Hours of the diagnosed QG ascent until the most-unstable parcel saturates, as a map and a line.
-
-    Calls :func:`qgforce.ascent.hours_to_initiation` with ``omega_total`` held constant from ``time``
-    (the most-unstable parcel of the lowest 300 hPa: with ω = 0 on the lower boundary of the
-    inversion, surface air is not lifted).  Returns the summary line and the list of PNG files
-    (empty, with an explanatory line, when the data carry no humidity).
-    """
-    from .ascent import hours_to_initiation
-    from .plot import map_field, save_figure
-
-    if "specific_humidity" not in ds:
-        return "column lifting: skipped (the data carry no specific humidity)", []
+def _initiation_line(results: xr.Dataset, time) -> str:
+    """The demo's line on the column-lifting field ``hours_to_saturation`` at ``time``
+    (computed by :func:`build_results`; see the module docstring)."""
+    if "hours_to_saturation" not in results:
+        return "column lifting: skipped (the data carry no specific humidity)"
     tdim = _time_dim(results)
-    sel = {tdim: time} if tdim else {}
-    if "hours_to_saturation" in results and horizon_hours == LIFTING_HORIZON_HOURS:  # computed by build_results
-        sat = results["hours_to_saturation"].sel(sel).load()
-    else:
-        hrs = hours_to_initiation(ds["temperature"].sel(sel), ds["specific_humidity"].sel(sel),
-                                  results["omega_total"].sel(sel), horizon_hours=horizon_hours, parcel="most_unstable")
-        sat = hrs["hours_to_saturation"].load()
+    sat = results["hours_to_saturation"].sel({tdim: time} if tdim else {}).load()
     n = int(np.isfinite(sat).sum())
     if n:
         j, i = np.unravel_index(int(np.nanargmin(sat.values)), sat.shape)
@@ -1777,15 +1760,5 @@ def demo_initiation_map(ds: xr.Dataset, results: xr.Dataset, time, output_dir, *
                  f"{abs(lon):.1f}°{'E' if lon >= 0 else 'W'}")
     else:
         first = "none"
-    line = (f"column lifting (most-unstable parcel, this ascent held for up to {horizon_hours:g} h): {n} of {sat.size} "
-            f"columns saturate, the soonest {first}; a kinematic estimate of the large-scale part only")
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(7.0, 5.0), layout="constrained")
-    z500 = results["geopotential"].sel(sel).sel(level=50000.0) if "geopotential" in results and 50000.0 in results["level"] else None
-    map_field(sat.assign_attrs(long_name="hours of QG ascent to saturate the most-unstable parcel", units="h"),
-              ax=ax, contours=z500, symmetric=False, cmap="viridis_r", projection=False,
-              title=f"hours to saturation under the QG ascent, {_stamp(time)}")
-    path = save_figure(fig, Path(output_dir) / f"hours_to_saturation_{_stamp(time)}.png", dpi=dpi)
-    plt.close(fig)
-    return line, [path]
+    return (f"column lifting (most-unstable parcel, this ascent held for up to {LIFTING_HORIZON_HOURS:g} h): {n} of "
+            f"{sat.size} columns saturate, the soonest {first}; a kinematic estimate of the large-scale part only")
