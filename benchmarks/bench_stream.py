@@ -27,8 +27,11 @@ compression of :func:`~qgforce.stream.write_results` (``complevel=1``), what a u
 runs inside HDF5's write at ``stream.zlib_mb_per_s`` on this machine and a 0.5° step makes about
 0.7 GB of float32 output, so compression costs more than the computation here; it parallelises
 over the workers.  Without it (``QGFORCE_BENCH_COMPLEVEL=0``) a step is three times faster but
-the write to disk, shared by the workers, bounds the speed-up (measured 2026-12-02: 7.6 and
-4.9 s per step, 1.55×, against 23.6 and 13.9 s, 1.70×, compressed).
+the write to disk, shared by the workers, bounds the speed-up (measured 2026-12-02 with whole
+columns per task: 7.6 and 4.9 s per step, 1.55×, against 23.6 and 13.9 s, 1.70×, compressed).
+The horizontal diagnostics run on blocks of about 12 MiB of levels (``levels_per_chunk="auto"``
+of :func:`~qgforce.stream.compute_record`; 5 levels here), which lowered the peak from 2.50 to
+1.98 GB and gave 18.1 and 9.7 s per step, 1.87× (measured 2026-12-02).
 
 Run ``python benchmarks/bench_stream.py [--quick]``; set ``QGFORCE_BENCH_DIR`` to choose where
 the record is written (default: the system's temporary directory).  It is deleted afterwards.

@@ -65,13 +65,20 @@ def test_record_is_lazy_one_chunk_per_step(record, no_compute, tmp_path):
         assert all(len(chunks[d]) == 1 for d in results[name].dims if d != "time")  # whole column and map
     two = compute_record(record, steps_per_chunk=2)
     assert two["omega_total"].chunks[0] == (2,) * 6
+    blocks = compute_record(record, levels_per_chunk=3)  # horizontal terms by level block, vertical ones whole
+    assert blocks["q_vector_forcing"].chunks[1] == (3, 3, 1)
+    assert len(blocks["omega_total"].chunks[1]) == 1 and len(blocks["beta_term"].chunks[1]) == 1
+    for bad in (0, 2.5, "some"):
+        with pytest.raises(QGForceError, match="levels_per_chunk must be 'auto', None or a positive integer"):
+            compute_record(record, levels_per_chunk=bad)
     pending = write_results(results, tmp_path / "later.nc", compute=False)
     assert isinstance(pending, PendingWrite) and os.listdir(tmp_path) == []  # nothing written yet
 
 
 def test_threaded_stream_equals_in_memory(record, in_memory, tmp_path):
     with dask.config.set(scheduler="threads"):
-        one = write_results(compute_record(record, steps_per_chunk=2), tmp_path / "one.nc", dtype="float64")
+        one = write_results(compute_record(record, steps_per_chunk=2, levels_per_chunk=2), tmp_path / "one.nc",
+                            dtype="float64")
         many = write_results(compute_record(record), tmp_path / "part.nc", dtype="float64", steps_per_file=5)
     assert [p.name for p in many] == ["part_000.nc", "part_001.nc", "part_002.nc"]
     with xr.open_dataset(one) as back:
