@@ -50,6 +50,7 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
+from . import _compiled
 from . import constants as C
 from . import moist as M
 from ._units import parse_units, to_si
@@ -141,99 +142,19 @@ def _advance(p, m, col, tau, om, plev, k0, k1, stop=None):
     -------
     p, m, tau_left, reached
         ``reached`` marks parcels stopped at ``stop``; ``tau_left`` their unused time.
+
+    Notes
+    -----
+    Layer by layer with the closed forms of the module docstring (a parcel that does not leave
+    its layer within the time left ends there; one that does crosses into the next after
+    t = ln(ω(p₁)/ω(p₀))/b); parcel by parcel in :func:`qgforce._compiled.follow_parcels`.
     """
-    nz, n = om.shape
-    flat = om.ravel()
-    p, m, tau = p.copy(), m.copy(), tau.astype(float, copy=True)
-    reached = np.zeros(p.size, bool)
-    live = np.flatnonzero(tau > 0)
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        for _ in range(2 * nz + 4):
-            if live.size == 0:
-                break
-            c, mm, pp, tt = col[live], m[live], p[live], tau[live]
-            kb, kt = k0[c], k1[c] - 1
-            has_lo, has_hi = mm >= kb, mm + 1 <= kt
-            ilo, ihi = np.clip(mm, kb, kt), np.clip(mm + 1, kb, kt)
-            om_lo, om_hi = flat[ilo * n + c], flat[ihi * n + c]
-            p_lo, p_hi = plev[ilo], plev[ihi]
-            interior = has_lo & has_hi
-            b = (om_hi - om_lo) / (p_hi - p_lo + ~interior)
-            v = om_lo + b * (pp - p_lo)
-            up = v < 0
-            tgt = np.where(up, p_hi, p_lo)
-            has_t = np.where(up, has_hi, has_lo)
-            if stop is not None:
-                st = stop[live]
-                use_stop = up & (st < pp) & ((st >= p_hi) | ~has_hi)
-                tgt = np.where(use_stop, st, tgt)
-                has_t |= use_stop
-            x = b * tt
-            small = np.abs(x) < 1e-8
-            phi = np.where(small, 1.0 + 0.5 * x, np.expm1(x) / np.where(small, 1.0, x))
-            p_new = pp + v * tt * phi
-            crossed = has_t & (v != 0) & np.where(up, p_new <= tgt, p_new >= tgt)
-            fin = ~crossed
-            lf = live[fin]
-            p[lf] = np.maximum(p_new[fin], 0.5 * plev[kt[fin]])
-            tau[lf] = 0.0
-            ci = np.flatnonzero(crossed)
-            if ci.size == 0:
-                break
-            lc = live[ci]
-            r = (om_lo[ci] + b[ci] * (tgt[ci] - p_lo[ci])) / v[ci]
-            y = r - 1.0
-            psi = np.where(np.abs(y) < 1e-7, 1.0 - 0.5 * y, np.log(r) / np.where(y == 0, 1.0, y))
-            t_cross = np.where(r > 0, (tgt[ci] - pp[ci]) / v[ci] * psi, np.inf)
-            t_cross = np.minimum(np.maximum(t_cross, 0.0), tt[ci])
-            p[lc] = tgt[ci]
-            tau[lc] = tt[ci] - t_cross
-            hit = use_stop[ci] if stop is not None else np.zeros(ci.size, bool)
-            reached[lc[hit]] = True
-            m[lc] += np.where(hit, 0, np.where(up[ci], 1, -1))
-            live = lc[~hit & (tau[lc] > 0)]
-    return p, m, tau, reached
-
-
-def _first_layer(k, cols, dur, om, plev, k0, k1):
-    """The path of the air of level ``k`` (columns ``cols``) while it stays in its first layer.
-
-    The closed forms of :func:`_advance`, written with whole rows (every parcel starts on level
-    k).  Returns the pressure after ``dur`` (exact for the parcels that stay in the layer), the
-    positions in ``cols`` of those that leave it and, for them, the level they reach, its index
-    and the time left.
-    """
-    nz = plev.size
-    sel = slice(None) if cols.size == k0.size else cols
-    v = om[k, sel]
-    up = v < 0
-    kb, kt = k0[sel], k1[sel]
-    om_up = om[k + 1, sel] if k + 1 < nz else v
-    om_dn = om[k - 1, sel] if k >= 1 else v
-    p_up = plev[k + 1] if k + 1 < nz else 0.0
-    p_dn = plev[k - 1] if k >= 1 else np.inf
-    has_t = np.where(up, k + 1 < kt, k - 1 >= kb)
-    om_t = np.where(up, om_up, om_dn)
-    dp = np.where(up, p_up - plev[k], p_dn - plev[k])
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        x = np.where(has_t, (om_t - v) / dp, 0.0) * dur
-        x += np.copysign(1e-200, x)
-        p_new = plev[k] + v * dur * (np.expm1(x) / x)
-    crossed = has_t & np.where(up, p_new <= p_up, p_new >= p_dn)
-    if k1.min() == nz:
-        np.maximum(p_new, 0.5 * plev[-1], out=p_new)
-    else:
-        np.maximum(p_new, 0.5 * plev[np.clip(kt - 1, 0, nz - 1)], out=p_new)
-    c = np.flatnonzero(crossed)
-    if c.size == 0:
-        return p_new, c, None
-    with np.errstate(invalid="ignore", divide="ignore"):
-        r = om_t[c] / v[c]
-        y = r - 1.0
-        psi = np.where(np.abs(y) < 1e-7, 1.0 - 0.5 * y, np.log(r) / np.where(y == 0, 1.0, y))
-        t_cross = np.minimum(np.maximum(dp[c] / v[c] * psi, 0.0), dur[c])
-    upc = up[c]
-    return p_new, c, (np.where(upc, p_up, p_dn), np.where(upc, k + 1, k - 1), dur[c] - t_cross)
+    f64 = np.ascontiguousarray
+    stop = np.full(np.shape(p), np.nan) if stop is None else stop
+    with np.errstate(all="ignore"):
+        return _compiled.follow_parcels(f64(p, float), f64(m, np.intp), f64(col, np.intp), f64(tau, float),
+                                        f64(om, float), f64(plev, float), f64(k0, np.intp), f64(k1, np.intp),
+                                        f64(stop, float))
 
 
 def _move(p, m, col, dur, flow: _Flow, plev, k0, k1, stop=None):
@@ -272,57 +193,28 @@ def _lift_parcels(prof, flow: _Flow, dur):
     """Displace the parcel of every level of every column for ``dur`` [s] (per column).
 
     Returns ln p, temperature, specific humidity at the end and the saturation flag, (nz, N)
-    each, NaN outside the valid block.  Work is batched: the first layer of every level with
-    whole rows, then every parcel that left it in one pass of :func:`_advance` (or every parcel
-    through the later steps of a sequence), then the thermodynamics, then every parcel that
-    saturated in one pass through its LCL and pseudo-adiabat.
+    each, NaN outside the valid block.  The paths first (:func:`qgforce._compiled.follow_levels`
+    for a steady flow, :func:`_move` through the steps of a sequence), then the dry-adiabatic
+    thermodynamics of every parcel, then every parcel that saturated in one pass through its LCL
+    and pseudo-adiabat.
     """
     nz, n = prof.t.shape
     plev = prof.p
     s = prof.s
-    sf = np.full((nz, n), np.nan)
-    lo, hi = int(prof.k0.min(initial=nz)), int(prof.k1.max(initial=0))
-    levels = [(k, np.flatnonzero((k >= prof.k0) & (k < prof.k1))) for k in range(lo, hi)]
-    steady = len(flow.omega) == 1
-    if steady:
-        om = flow.omega[0]
-        pend, rest = {}, []
-        for k, cols in levels:
-            if cols.size:
-                pend[k], c, r = _first_layer(k, cols, dur[cols], om, plev, prof.k0, prof.k1)
-                if c.size:
-                    rest.append((k, c, cols[c]) + r)
-        if rest:
-            pc, _, _, _ = _advance(np.concatenate([r[3] for r in rest]), np.concatenate([r[4] for r in rest]),
-                                   np.concatenate([r[2] for r in rest]), np.concatenate([r[5] for r in rest]),
-                                   om, plev, prof.k0, prof.k1)
-            i = 0
-            for k, c, *_ in rest:
-                pend[k][c] = pc[i:i + c.size]
-                i += c.size
-    else:
-        ks = np.concatenate([np.full(c.size, k) for k, c in levels]) if levels else np.zeros(0, int)
-        cs = np.concatenate([c for _, c in levels]) if levels else np.zeros(0, int)
-        pall, _, _ = _move(plev[ks], ks, cs, dur[cs], flow, plev, prof.k0, prof.k1)
-        pend, i = {}, 0
-        for k, c in levels:
-            pend[k] = pall[i:i + c.size]
-            i += c.size
-    tf, qf = np.full((nz, n), np.nan), np.full((nz, n), np.nan)
-    sat_all = np.zeros((nz, n), bool)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        for k, cols in levels:
-            if not cols.size:
-                continue
-            full = cols.size == n
-            sel = slice(None) if full else cols
-            ds = np.log(pend[k] / plev[k])
-            t_end = prof.t[k, sel] * np.exp(_K * ds)
-            sat = (prof.x[k, sel] + ds) > M._es_exponent(t_end)
-            sf[k, sel] = s[k] + ds
-            tf[k, sel] = t_end
-            qf[k, sel] = prof.q[k, sel]
-            sat_all[k, sel] = sat
+    with np.errstate(all="ignore"):
+        if len(flow.omega) == 1:
+            pend = _compiled.follow_levels(np.ascontiguousarray(flow.omega[0], float), plev, prof.k0, prof.k1,
+                                           np.ascontiguousarray(dur, float))
+        else:
+            idx = np.arange(nz)[:, None]
+            kk, cc = np.nonzero((idx >= prof.k0) & (idx < prof.k1))
+            pend = np.full((nz, n), np.nan)
+            pend[kk, cc] = _move(plev[kk], kk, cc, dur[cc], flow, plev, prof.k0, prof.k1)[0]
+        ds = np.log(pend / plev[:, None])
+        tf = prof.t * np.exp(_K * ds)
+        sat_all = (prof.x + ds) > M._es_exponent(tf)
+        sf = s[:, None] + ds
+    qf = prof.q.copy()
     # saturated parcels: from their LCL along their pseudo-adiabat (condensate removed)
     kk, cc = np.nonzero(sat_all)
     if kk.size:
@@ -345,57 +237,13 @@ def _regrid(prof, sf, tf, qf):
     """Interpolate the displaced parcels onto the levels, linearly in ln p.
 
     The parcels of a column stay in order, so the parcel just below level m is the last of those
-    with ln p ≥ ln p_m: their count gives its index.  Levels outside the span of the parcels keep
-    their original values.  Returns T, q (nz, N) and the number of out-of-order parcels per column
-    (0 in exact arithmetic), which are sorted first.
+    with ln p ≥ ln p_m.  Levels outside the span of the parcels keep their original values.
+    Returns T, q (nz, N) and the number of out-of-order parcels per column (0 in exact
+    arithmetic), which are sorted first (in place); column by column in
+    :func:`qgforce._compiled.regrid_parcels`.
     """
-    nz, n = prof.t.shape
-    s = prof.s
-    with np.errstate(invalid="ignore", divide="ignore"):
-        idx = np.arange(nz)[:, None]
-        inside = (idx[1:] >= prof.k0 + 1) & (idx[1:] < prof.k1)
-        # ties (air converging on a level of zero ω until equal to round-off) are not crossings
-        crossed = (inside & (sf[1:] > sf[:-1] + 1e-12)).sum(axis=0)
-    if crossed.any():
-        cols = np.flatnonzero(crossed)
-        fin = np.isfinite(sf[:, cols])
-        order = np.argsort(np.where(fin, -sf[:, cols], np.inf), axis=0, kind="stable")
-        for a in (sf, tf, qf):
-            a[:, cols] = np.take_along_axis(a[:, cols], order, axis=0)
-    t_new, q_new = prof.t.copy(), prof.q.copy()
-    ar = np.arange(n)
-    fs, ft, fq = sf.ravel(), tf.ravel(), qf.ravel()
-    n_valid = prof.k1 - prof.k0
-    with np.errstate(invalid="ignore", divide="ignore"):
-        cnt = np.zeros(n, np.intp)
-        # rows whose parcels all lie below (at higher ln p than) a level count in full; only the
-        # rows that straddle it are compared column by column
-        row_min = np.array([np.nanmin(r) if np.isfinite(r).any() else np.inf for r in sf])
-        row_max = np.array([np.nanmax(r) if np.isfinite(r).any() else -np.inf for r in sf])
-        row_n = np.isfinite(sf).sum(axis=1)
-        full_row = row_n == n
-        for lev in range(int(prof.k0.min(initial=nz)), int(prof.k1.max(initial=0))):
-            below = row_min >= s[lev]
-            cnt[:] = np.count_nonzero(below & full_row)
-            for k in np.flatnonzero(below & ~full_row):
-                cnt += np.isfinite(sf[k])
-            for k in np.flatnonzero((row_min < s[lev]) & (row_max >= s[lev])):
-                cnt += sf[k] >= s[lev]
-            cover = (cnt >= 1) & (cnt < n_valid) & (lev >= prof.k0) & (lev < prof.k1)
-            if cover.all():
-                a = (prof.k0 + cnt - 1) * n + ar
-                b = a + n
-                w = (fs[a] - s[lev]) / (fs[a] - fs[b])
-                t_new[lev] = ft[a] + w * (ft[b] - ft[a])
-                q_new[lev] = fq[a] + w * (fq[b] - fq[a])
-            elif cover.any():
-                c = np.flatnonzero(cover)
-                a = (prof.k0[c] + cnt[c] - 1) * n + c
-                b = a + n
-                w = (fs[a] - s[lev]) / (fs[a] - fs[b])
-                t_new[lev, c] = ft[a] + w * (ft[b] - ft[a])
-                q_new[lev, c] = fq[a] + w * (fq[b] - fq[a])
-    return t_new, q_new, crossed
+    with np.errstate(all="ignore"):
+        return _compiled.regrid_parcels(prof.s, sf, tf, qf, prof.t, prof.q, prof.k0, prof.k1)
 
 
 def _lifted_profile(prof, flow, dur):
@@ -415,19 +263,32 @@ def _valid_flow(t, om):
     return np.isfinite(om) if om.ndim == 2 else np.isfinite(om).all(axis=0)
 
 
-def _lift_kernel(t, q, om, *, levels, step_hours, interpolation, hours, mu_depth, moist_threshold):
+def _lift_kernel(t, q, om, *, levels, step_hours, interpolation, hours, mu_depth, moist_threshold, unlifted,
+                 threads=1):
     def block(tb, qb, ob):
-        prof = M._make_profile(levels, tb, qb, valid=_valid_flow(tb, ob), copy=False)
+        flow_ok = _valid_flow(tb, ob)
+        out = {}
+        if unlifted:
+            # the diagnostics of the unlifted columns from the same profile, when ω covers them
+            ref = M._make_profile(levels, tb, qb, copy=False)
+            idx = np.arange(ref.p.size)[:, None]
+            inside = (idx >= ref.k0) & (idx < ref.k1)
+            prof = ref if flow_ok[inside].all() else M._make_profile(levels, ref.t, ref.q, valid=flow_ok)
+            prof.cache["clipped"] = ref.cache["clipped"]
+            diag = M._diagnose(ref, mu_depth, moist_threshold)
+            out.update({f"unlifted_{name}": diag[name] for name, _, _ in _CHANGES})
+        else:
+            prof = M._make_profile(levels, tb, qb, valid=flow_ok, copy=False)
         flow = _make_flow(ob, step_hours, interpolation)
         dur = np.full(prof.n, hours * C.SECONDS_PER_HOUR)
         new, pf, tf, qf, sat, crossed = _lifted_profile(prof, flow, dur)
-        out = M._diagnose(new, mu_depth, moist_threshold)
+        out.update(M._diagnose(new, mu_depth, moist_threshold))
         out["clipped"] = prof.cache["clipped"]
         out.update(temperature=new.t, specific_humidity=new.q, displaced_pressure=pf / 100.0, saturated=sat,
                    crossed_parcels=crossed)
         return out
 
-    return M._by_blocks(block, t, q, om)
+    return M._by_blocks(block, t, q, om, threads=threads)
 
 
 # ======================================================================= hours to initiation
@@ -493,7 +354,8 @@ def _search(f, cols, f0, horizon, tol, scan=(0.25, 0.5, 0.75), max_iter=40):
     return res
 
 
-def _hours_kernel(t, q, om, *, levels, step_hours, interpolation, horizon, parcel, threshold, tol, mu_depth):
+def _hours_kernel(t, q, om, *, levels, step_hours, interpolation, horizon, parcel, threshold, tol, mu_depth,
+                  threads=1):
     def block(tb, qb, ob):
         prof = M._make_profile(levels, tb, qb, valid=_valid_flow(tb, ob), copy=False)
         flow = _make_flow(ob, step_hours, interpolation)
@@ -542,7 +404,7 @@ def _hours_kernel(t, q, om, *, levels, step_hours, interpolation, horizon, parce
             "clipped": prof.cache["clipped"],
         }
 
-    return M._by_blocks(block, t, q, om)
+    return M._by_blocks(block, t, q, om, threads=threads)
 
 
 # ============================================================================ labelled layer
@@ -723,13 +585,19 @@ def lift_columns(
     t, q, om, levels, step_hours, core = _prepare(temperature, specific_humidity, omega_or_w, time_dim,
                                                   time_interpolation, "lift_columns")
     outputs = M._COLUMN_OUTPUTS + _LIFT_EXTRA
+    if reference is None:  # the unlifted diagnostics in the same pass over the columns
+        by_name = {o.name: o for o in M._COLUMN_OUTPUTS}
+        outputs += tuple(M._Out(f"unlifted_{name}", by_name[name].kind, by_name[name].attrs) for name, _, _ in _CHANGES)
     ds = M._apply_columns(
         _lift_kernel, [t, q, om], core, outputs,
         kwargs={"levels": levels, "step_hours": step_hours, "interpolation": time_interpolation, "hours": float(hours),
-                "mu_depth": float(most_unstable_depth), "moist_threshold": float(moist_threshold)},
+                "mu_depth": float(most_unstable_depth), "moist_threshold": float(moist_threshold),
+                "unlifted": reference is None},
     )
     if reference is None:
-        reference = M._column_dataset(t, q, most_unstable_depth, moist_threshold, warn=False)
+        names = [f"unlifted_{name}" for name, _, _ in _CHANGES]
+        reference = ds[names].rename({f"unlifted_{name}": name for name, _, _ in _CHANGES})
+        ds = ds.drop_vars(names)
     missing = [name for name, _, _ in _CHANGES if name not in reference]
     if missing:
         raise MissingVariableError(f"reference lacks {missing}; pass the output of qgforce.moist.column_diagnostics")

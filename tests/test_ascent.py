@@ -286,3 +286,31 @@ def test_lazy_on_dask_and_equal_to_numpy(no_compute):
     with dask.config.set(scheduler="synchronous"):
         xr.testing.assert_allclose(lifted.compute(), A.lift_columns(t, q, om, 6.0))
         xr.testing.assert_allclose(hours.compute(), A.hours_to_initiation(t, q, om, 12.0))
+
+
+def test_regrid_sorts_out_of_order_parcels_within_the_valid_block():
+    # Round-off can leave two displaced parcels out of order; they are sorted (by ln p) before
+    # interpolating, within the valid block of the column (here the two lowest levels are below
+    # ground).  Reference: np.interp on the sorted parcels (linear in ln p).
+    p = np.array([1e5, 9.5e4, 9e4, 8.5e4, 8e4, 7.5e4, 7e4])
+    t = np.array([np.nan, np.nan, 290.0, 287.0, 284.0, 281.0, 278.0])[:, None]
+    q = np.array([np.nan, np.nan, 8e-3, 7e-3, 6e-3, 5e-3, 4e-3])[:, None]
+    prof = M._make_profile(p, t, q)
+    assert (int(prof.k0[0]), int(prof.k1[0])) == (2, 7)
+    s = np.log(p)
+    sf = np.full((7, 1), np.nan)
+    sf[2:, 0] = np.log([9.2e4, 8.3e4, 8.6e4, 7.8e4, 7.3e4])  # levels 3 and 4 swapped
+    tf = np.full((7, 1), np.nan)
+    tf[2:, 0] = [291.0, 285.0, 288.0, 282.0, 279.0]
+    qf = np.full((7, 1), np.nan)
+    qf[2:, 0] = [8e-3, 6e-3, 7e-3, 5e-3, 4e-3]
+    t_new, q_new, crossed = A._regrid(prof, sf.copy(), tf.copy(), qf.copy())
+    assert int(crossed[0]) == 1
+    order = np.argsort(-sf[2:, 0])
+    xs, ts, qs = -sf[2:, 0][order], tf[2:, 0][order], qf[2:, 0][order]
+    inside = (s >= sf[2:, 0].min()) & (s <= sf[2:, 0].max())
+    np.testing.assert_allclose(t_new[inside, 0], np.interp(-s[inside], xs, ts), rtol=1e-13)
+    np.testing.assert_allclose(q_new[inside, 0], np.interp(-s[inside], xs, qs), rtol=1e-12)
+    # levels outside the span of the parcels keep their air; below ground stays NaN
+    assert np.all(np.isnan(t_new[:2, 0]))
+    np.testing.assert_array_equal(t_new[2:][~inside[2:], 0], t[2:][~inside[2:], 0])

@@ -406,3 +406,29 @@ def test_lazy_on_dask_and_equal_to_numpy(no_compute):
 
     with dask.config.set(scheduler="synchronous"):
         xr.testing.assert_allclose(lazy.compute(), M.column_diagnostics(t, q))
+
+
+def test_blocks_on_threads_equal_one_thread_and_count_clipping_once(monkeypatch):
+    # The blocks of columns of an in-memory call run on threads; the result must not depend on
+    # it (each block is independent) and the clipping warning must count every block once.
+    p = np.linspace(1e5, 2e4, 17)
+    t1, q1 = smooth_moist_environment(p)
+    n = 2 * M._BLOCK + 7  # three blocks, the last partial
+    rng = np.random.default_rng(3)
+    t = t1[:, None] + rng.normal(0.0, 0.5, (17, n))
+    q = q1[:, None] * rng.uniform(0.5, 1.2, (17, n))
+    q[0, :5] = -1e-5
+    dims = ("level", "column")
+    tt = xr.DataArray(t, coords={"level": p}, dims=dims, attrs={"units": "K"})
+    qq = xr.DataArray(q, coords={"level": p}, dims=dims, attrs={"units": "kg kg-1"})
+    runs = {}
+    for threads in (1, 2):
+        monkeypatch.setattr(M, "_block_threads", lambda threads=threads: threads)
+        with pytest.warns(DataQualityWarning, match="5 negative") as rec:
+            runs[threads] = M.column_diagnostics(tt, qq)
+        assert len([w for w in rec if issubclass(w.category, DataQualityWarning)]) == 1
+    xr.testing.assert_identical(runs[1], runs[2])
+    # and the same as the columns one by one (no state shared between columns)
+    for c in (5, M._BLOCK - 1, M._BLOCK, n - 1):
+        one = M.column_diagnostics(tt.isel(column=[c]), qq.isel(column=[c]))
+        xr.testing.assert_identical(one.isel(column=0), runs[2].isel(column=c))

@@ -83,13 +83,27 @@ def _centred_geostrophic(phi, lat_deg, lon_deg):
 
 
 # ---------------------------------------------------------------------------- reproducibility
-def test_file_reproduces_the_build_value_for_value(built, stored):
-    # The file is the float32 build written losslessly (zlib): identical values,
-    # coordinates and attributes (common practice: a bundled file must be regenerable).
-    xr.testing.assert_identical(built, stored)
+def _assert_same_build(a, b):
+    """The same demo dataset: coordinates and attributes identical, values as explained below."""
+    # Values agree to a few float32 spacings of each field's largest magnitude rather than bit
+    # for bit: the last bit of float64 exp/log differs between CPUs (numpy's SIMD paths), and the
+    # winds are centred differences of the geopotential over 1e-3 degree, which lift such
+    # differences to the float32 rounding of values near zero (measured on one machine: 993 of
+    # 163300 values of va one rounding apart, 1e-7 of the field's scale).
+    xr.testing.assert_identical(a.drop_vars(list(a.data_vars)), b.drop_vars(list(b.data_vars)))
+    assert set(a.data_vars) == set(b.data_vars) == set(scenario.DEMO_VARIABLES)
     for name in scenario.DEMO_VARIABLES:
-        assert stored[name].dtype == np.float32
-        np.testing.assert_array_equal(stored[name].values, built[name].values)
+        assert a[name].dtype == b[name].dtype == np.float32
+        assert a[name].dims == b[name].dims and a[name].attrs == b[name].attrs
+        scale = float(np.abs(b[name].values).max())
+        np.testing.assert_allclose(a[name].values, b[name].values, rtol=0,
+                                   atol=4 * float(np.spacing(np.float32(scale))), err_msg=name)
+
+
+def test_file_reproduces_the_build(built, stored):
+    # The file is the float32 build written losslessly (zlib) (common practice: a bundled file
+    # must be regenerable).
+    _assert_same_build(stored, built)
 
 
 def test_float32_values_are_the_rounded_analytic_fields(stored):
@@ -112,7 +126,7 @@ def test_script_rewrites_the_file_identically(tmp_path, built, stored):
     # byte-for-byte on the same libraries (no timestamps are written)
     assert first.read_bytes() == second.read_bytes()
     with xr.open_dataset(second) as again:
-        xr.testing.assert_identical(again.load(), stored)
+        _assert_same_build(again.load(), stored)
 
 
 def test_script_command_line_writes_the_named_file(tmp_path, built, monkeypatch):
@@ -128,7 +142,7 @@ def test_demo_path_and_load_demo(stored, monkeypatch, tmp_path):
     xr.testing.assert_identical(scenario.load_demo(), stored)
     # Without the file (a non-editable install), load_demo builds the same dataset in memory.
     monkeypatch.setattr(scenario, "demo_path", lambda: tmp_path / "absent.nc")
-    xr.testing.assert_identical(scenario.load_demo(), stored)
+    _assert_same_build(scenario.load_demo(), stored)
 
 
 def test_file_size_at_most_5_mb():

@@ -1,0 +1,255 @@
+"""Compiled column loops (numba) of :mod:`qgforce.moist` and :mod:`qgforce.ascent`.
+
+The column diagnostics follow every column level by level with branches that differ from
+column to column (where the buoyancy changes sign, where the LCL lies, how many layers a parcel
+crosses).  Written with whole numpy rows, such loops spend most of their time on masks and
+temporaries; here each is a scalar loop over levels (outer) and columns (inner, so that
+neighbouring columns read neighbouring memory), compiled once per machine and run without the
+GIL, so that threads run blocks of columns side by side (:func:`qgforce.moist._by_blocks` in
+memory, dask's threads on chunks).
+
+Each kernel is documented where it is called; these functions only do the arithmetic, on arrays
+the callers computed with the formulas of :mod:`qgforce.moist`.  They call no function of
+another module, and must not: numba's on-disk cache (``cache=True``: beside this file, or in the
+user's cache directory when the package directory is read-only) is refreshed when this file
+changes, not when a module it calls does.
+"""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+
+__all__ = ["buoyancy_integrals", "heights", "follow_parcels", "follow_levels", "regrid_parcels"]
+
+_JIT = dict(nogil=True, cache=True)
+
+
+@numba.njit(inline="always")
+def _segment(sp, bp, tp, ci, nt, ce, sf, se, fd, sb, bb, tb, gate, lcl_point, r_half):
+    """Add the segment from (sp, bp) to (sb, bb) of ln p and buoyancy to the integrals of a parcel.
+
+    B is linear in ln p on the segment; its signed area −R_d ∫ B d ln p, positive part and zero
+    crossing are exact.  Before the LFC (``fd`` false) every negative area adds to CIN ``ci``;
+    the LFC ``sf`` is the first upward crossing at or above ``gate`` (the LCL), or the end point
+    itself when the segment ends at the LCL (``lcl_point``) with the parcel buoyant; after it the
+    net area ``nt`` accumulates, and each downward crossing is a candidate EL ``se`` with CAPE
+    ``ce`` the net area up to it.  ``tb`` is the environment's T_v at the end.  Returns the state.
+    """
+    area = r_half * (sp - sb) * (bp + bb)
+    pa = bp > 0
+    pb = bb > 0
+    ci += area * (0.0 if (pa or fd) else 1.0)
+    nt += area * (1.0 if fd else 0.0)
+    if (pa != pb) or (lcl_point and pb):
+        cin_i = ci - area * (0.0 if (pa or fd) else 1.0)
+        net_i = nt - area * (1.0 if fd else 0.0)
+        cross = pa != pb
+        d = sp - sb
+        if cross:
+            den = bp - bb
+            pos = r_half * d * max(bp, bb) ** 2 / abs(den)
+        else:
+            den = 1.0
+            pos = area * (1.0 if pa else 0.0)
+        s_x = sp - d * bp / den
+        cin_i += (area - pos) * (0.0 if fd else 1.0)
+        if fd and cross and pa:
+            ce = net_i + pos
+            se = s_x
+        net_i += area * (1.0 if fd else 0.0)
+        via_cross = cross and pb and sp <= gate
+        new = (not fd) and (via_cross or (lcl_point and pb))
+        if new:
+            sf = s_x if via_cross else sb
+            nt = pos if via_cross else 0.0
+        else:
+            nt = net_i
+        ci = cin_i
+        fd = fd or new
+    return sb, bb, tb, ci, nt, ce, sf, se, fd
+
+
+@numba.njit(**_JIT)
+def buoyancy_integrals(s, pi, tv_env, env, rows, k1, kfirst, s0, tv0, s_lcl, tv_lcl, s_gate, cdry, i_lab, w_lab, r_half):
+    """Lift one parcel per column and integrate its buoyancy (the loop of ``moist._ascend``).
+
+    Parameters are (nz,) ``s`` = ln p and ``pi`` = (p/1 Pa)^κ; (nz, M) ``tv_env``, of which
+    parcel c rises through column ``env[c]``; (nz, n_labels) ``rows`` (parcel T_v on each
+    pseudo-adiabat at each level); (N,) the rest; ``r_half`` = R_d / 2.  Parcel c is followed
+    from level max(kfirst[c], 0) to k1[c] − 1, through the points start, levels and LCL (a point
+    of its own inside the segment that contains it); see :func:`_segment`.
+
+    Returns (N,) arrays: cin, net area since the LFC, CAPE up to the last EL, ln p of the LFC and
+    of the EL, the LFC flag and the last buoyancy.
+    """
+    nz, n = tv_env.shape[0], env.size
+    sp, tp = s0.copy(), tv0.copy()
+    bp = np.zeros(n)
+    cin = np.zeros(n)
+    net = np.zeros(n)
+    cape_el = np.zeros(n)
+    s_lfc = np.full(n, np.nan)
+    s_el = np.full(n, np.nan)
+    found = np.zeros(n, np.bool_)
+    for k in range(nz):  # level by level: neighbouring parcels read neighbouring memory
+        sk = s[k]
+        for c in range(n):
+            if k < kfirst[c] or k >= k1[c]:
+                continue
+            a0, a1, a2, a3, a4, a5, a6, a7, a8 = sp[c], bp[c], tp[c], cin[c], net[c], cape_el[c], s_lfc[c], s_el[c], found[c]
+            sl = s_lcl[c]
+            if sk < sl:
+                il, wl = i_lab[c], w_lab[c]
+                tvp = rows[k, il] + wl * (rows[k, il + 1] - rows[k, il])
+            else:
+                tvp = cdry[c] * pi[k]
+            tve = tv_env[k, env[c]]
+            if sl < a0 and sl > sk:  # the LCL inside this segment
+                tve_l = a2 + (a0 - sl) / (a0 - sk) * (tve - a2)
+                a0, a1, a2, a3, a4, a5, a6, a7, a8 = _segment(a0, a1, a2, a3, a4, a5, a6, a7, a8, sl, tv_lcl[c] - tve_l,
+                                                              tve_l, sl, True, r_half)
+            a0, a1, a2, a3, a4, a5, a6, a7, a8 = _segment(a0, a1, a2, a3, a4, a5, a6, a7, a8, sk, tvp - tve, tve,
+                                                          s_gate[c], False, r_half)
+            sp[c], bp[c], tp[c], cin[c], net[c], cape_el[c], s_lfc[c], s_el[c], found[c] = a0, a1, a2, a3, a4, a5, a6, a7, a8
+    return cin, net, cape_el, s_lfc, s_el, found, bp
+
+
+@numba.njit(inline="always")
+def _max_nan(a, b):
+    """max(a, b) propagating a NaN ``a``, as numpy.maximum."""
+    return a if not (a < b) else b
+
+
+@numba.njit(inline="always")
+def _follow(p, m, tau, c, om, plev, k0, k1, stop):
+    """One parcel along the steady flow dp/dt = ω(p) for ``tau`` s (see ``ascent._advance``).
+
+    ω is linear in p between the levels of column ``c`` (constant beyond its valid block
+    k0[c] … k1[c] − 1), so within a layer the path is p(t) = p₀ + ω(p₀) t (e^{bt} − 1)/(bt) and
+    the time to reach p₁ is ln(ω(p₁)/ω(p₀))/b.  ``stop`` (NaN: none) is a pressure where a rising
+    parcel stops.  Returns the pressure, the level index at or below it, the time left and
+    whether it stopped at ``stop``.
+    """
+    nz = plev.size
+    kb, kt = k0[c], k1[c] - 1
+    if not (tau > 0):
+        return p, m, tau, False
+    for _ in range(2 * nz + 4):
+        has_lo, has_hi = m >= kb, m + 1 <= kt
+        ilo = min(max(m, kb), kt)
+        ihi = min(max(m + 1, kb), kt)
+        om_lo, om_hi = om[ilo, c], om[ihi, c]
+        p_lo, p_hi = plev[ilo], plev[ihi]
+        b = (om_hi - om_lo) / (p_hi - p_lo + (0.0 if (has_lo and has_hi) else 1.0))
+        v = om_lo + b * (p - p_lo)
+        up = v < 0
+        tgt = p_hi if up else p_lo
+        has_t = has_hi if up else has_lo
+        use_stop = up and stop < p and (stop >= p_hi or not has_hi)
+        if use_stop:
+            tgt, has_t = stop, True
+        x = b * tau
+        phi = 1.0 + 0.5 * x if abs(x) < 1e-8 else np.expm1(x) / x
+        p_new = p + v * tau * phi
+        if not (has_t and v != 0 and ((p_new <= tgt) if up else (p_new >= tgt))):
+            return _max_nan(p_new, 0.5 * plev[kt]), m, 0.0, False  # ends in this layer
+        # reaches the target: after t = ln(ω(p₁)/ω(p₀))/b, written stably for small b
+        r = (om_lo + b * (tgt - p_lo)) / v
+        y = r - 1.0
+        if r > 0:
+            psi = 1.0 - 0.5 * y if abs(y) < 1e-7 else np.log(r) / y
+            t_cross = (tgt - p) / v * psi
+        else:
+            t_cross = np.inf
+        p, tau = tgt, tau - min(_max_nan(t_cross, 0.0), tau)
+        if use_stop:
+            return p, m, tau, True
+        m += 1 if up else -1
+        if not (tau > 0):
+            break
+    return p, m, tau, False
+
+
+@numba.njit(**_JIT)
+def follow_parcels(p, m, col, tau, om, plev, k0, k1, stop):
+    """:func:`_follow` for every parcel of (M,) arrays; returns new arrays p, m, tau left, reached."""
+    n = p.size
+    p_out, m_out, t_out = np.empty(n), np.empty(n, np.intp), np.empty(n)
+    reached = np.zeros(n, np.bool_)
+    for i in range(n):
+        p_out[i], m_out[i], t_out[i], reached[i] = _follow(p[i], m[i], tau[i], col[i], om, plev, k0, k1, stop[i])
+    return p_out, m_out, t_out, reached
+
+
+@numba.njit(**_JIT)
+def follow_levels(om, plev, k0, k1, dur):
+    """The pressure (nz, N) reached after ``dur[c]`` s by the air of every valid level (NaN elsewhere)."""
+    nz, n = om.shape
+    out = np.full((nz, n), np.nan)
+    for k in range(nz):  # level by level: neighbouring parcels read neighbouring memory
+        for c in range(n):
+            if k >= k0[c] and k < k1[c]:
+                out[k, c] = _follow(plev[k], k, dur[c], c, om, plev, k0, k1, np.nan)[0]
+    return out
+
+
+@numba.njit(**_JIT)
+def regrid_parcels(s, sf, tf, qf, t, q, k0, k1):
+    """Interpolate displaced parcels back onto the levels, linearly in ln p (``ascent._regrid``).
+
+    ``sf``, ``tf``, ``qf`` (nz, N): ln p, T, q of the parcel that started at each level, valid in
+    the block k0 … k1 − 1 of each column; they are sorted in place into decreasing ln p where
+    round-off put them out of order.  Levels outside the span of the parcels keep ``t``, ``q``.
+    Returns T, q (nz, N) and the count of out-of-order parcels per column.
+    """
+    nz, n = t.shape
+    t_new, q_new = t.copy(), q.copy()
+    crossed = np.zeros(n, np.int64)
+    for j in range(1, nz):  # level by level: neighbouring columns read neighbouring memory
+        for c in range(n):
+            # ties (air converging on a level of zero ω until equal to round-off) are not crossings
+            if j > k0[c] and j < k1[c] and sf[j, c] > sf[j - 1, c] + 1e-12:
+                crossed[c] += 1
+    for c in np.flatnonzero(crossed):  # insertion sort of the block, decreasing ln p
+        a, e = k0[c], k1[c]
+        for j in range(a + 1, e):
+            i = j
+            while i > a and sf[i, c] > sf[i - 1, c]:
+                for arr in (sf, tf, qf):
+                    arr[i, c], arr[i - 1, c] = arr[i - 1, c], arr[i, c]
+                i -= 1
+    below = k0.copy()  # per column, the first parcel above the level (those before lie at or below it)
+    for lev in range(nz):
+        for c in range(n):
+            a, e = k0[c], k1[c]
+            if lev < a or lev >= e:
+                continue
+            while below[c] < e and sf[below[c], c] >= s[lev]:
+                below[c] += 1
+            cnt = below[c] - a
+            if cnt >= 1 and cnt < e - a:
+                lo, hi = below[c] - 1, below[c]
+                w = (sf[lo, c] - s[lev]) / (sf[lo, c] - sf[hi, c])
+                t_new[lev, c] = tf[lo, c] + w * (tf[hi, c] - tf[lo, c])
+                q_new[lev, c] = qf[lo, c] + w * (qf[hi, c] - qf[lo, c])
+    return t_new, q_new, crossed
+
+
+@numba.njit(**_JIT)
+def heights(s, tv, k0, k1, r_over_2g):
+    """Heights (nz, N) above the lowest valid level by the hypsometric equation (``moist._heights``).
+
+    dz = (R_d / 2g) (ln p_{k−1} − ln p_k) (T_v,k−1 + T_v,k): T_v linear in ln p in each layer;
+    NaN outside the valid block k0 … k1 − 1 of each column.
+    """
+    nz, n = tv.shape
+    z = np.full((nz, n), np.nan)
+    run = np.zeros(n)
+    for k in range(nz):  # level by level: contiguous rows
+        for c in range(n):
+            if k >= k0[c] and k < k1[c]:
+                if k > k0[c]:
+                    run[c] += r_over_2g * (s[k - 1] - s[k]) * (tv[k - 1, c] + tv[k, c])
+                z[k, c] = run[c]
+    return z
