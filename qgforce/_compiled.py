@@ -20,7 +20,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["buoyancy_integrals", "heights", "follow_parcels", "follow_levels", "regrid_parcels"]
+__all__ = ["at_log_pressure", "buoyancy_integrals", "heights", "follow_parcels", "follow_levels", "regrid_parcels"]
 
 _JIT = dict(nogil=True, cache=True)
 
@@ -253,3 +253,28 @@ def heights(s, tv, k0, k1, r_over_2g):
                     run[c] += r_over_2g * (s[k - 1] - s[k]) * (tv[k - 1, c] + tv[k, c])
                 z[k, c] = run[c]
     return z
+
+
+@numba.njit(**_JIT)
+def at_log_pressure(s, f, tv, z, k0, k1, s_t, r_over_2g):
+    """A field and the height at ln p = ``s_t[c]`` in each column (``moist._at_log_pressure``).
+
+    Linear in ln p between the two valid levels around s_t; the height adds to the level below
+    the trapezoid of T_v (exact for T_v linear in ln p).  NaN where s_t is not finite or outside
+    the valid block k0 … k1 − 1 (which needs two levels).  Returns f(s_t), z(s_t).
+    """
+    n = s_t.size
+    f_t = np.full(n, np.nan)
+    z_t = np.full(n, np.nan)
+    for c in range(n):
+        st = s_t[c]
+        if not np.isfinite(st) or k1[c] - k0[c] < 2 or st > s[k0[c]] or st < s[k1[c] - 1]:
+            continue
+        j = k0[c]
+        while j < k1[c] - 2 and s[j + 1] > st:
+            j += 1
+        w = (s[j] - st) / (s[j] - s[j + 1])
+        f_t[c] = f[j, c] + w * (f[j + 1, c] - f[j, c])
+        tv_t = tv[j, c] + w * (tv[j + 1, c] - tv[j, c])
+        z_t[c] = z[j, c] + r_over_2g * (tv[j, c] + tv_t) * (s[j] - st)
+    return f_t, z_t

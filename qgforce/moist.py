@@ -580,43 +580,21 @@ def _heights(prof: _Profile):
     return _compiled.heights(prof.s, prof.tv, prof.k0, prof.k1, 0.5 * _R / _G)
 
 
-def _at_log_pressure(prof: _Profile, fields, s_t):
-    """Values of (nz, N) ``fields``, then the height, at s_t = ln p in each column (linear in ln p).
+def _at_log_pressure(prof: _Profile, field, s_t):
+    """A (nz, N) ``field`` (or None) and the height at s_t = ln p in each column (linear in ln p).
 
-    Returns a list with one array per field followed by the height [m above the lowest valid
+    Returns the field's value (None without a field) and the height [m above the lowest valid
     level]; NaN where s_t is outside the valid block of the column.  The height of the partial
     layer uses the trapezoid of T_v, exact for T_v linear in ln p.  ``s_t`` is one value for
-    every column or one per column.
+    every column or one per column; :func:`qgforce._compiled.at_log_pressure` does the work.
     """
-    s = prof.s
-    n = prof.n
     z = prof.cache.get("z")
     if z is None:
         z = prof.cache["z"] = _heights(prof)
-    arrays = list(fields) + [prof.tv, z]
-    if np.ndim(s_t) == 0:
-        j = int(np.clip(np.searchsorted(-s, -s_t, side="right") - 1, 0, s.size - 2))
-        w = (s[j] - s_t) / (s[j] - s[j + 1])
-        inside = (s[j] >= s_t >= s[j + 1]) & (j >= prof.k0) & (j + 1 < prof.k1)
-        lo = [a[j] for a in arrays]
-        hi = [a[j + 1] for a in arrays]
-        dsj = s[j] - s_t
-    else:
-        s_t = np.asarray(s_t, float)
-        finite = np.isfinite(s_t)
-        j = np.searchsorted(-s, -np.where(finite, s_t, s[0]), side="right") - 1
-        j = np.clip(np.clip(j, prof.k0, prof.k1 - 2), 0, s.size - 2)
-        inside = finite & (prof.k1 - prof.k0 >= 2) & (s_t <= s[j]) & (s_t >= s[j + 1])
-        w = (s[j] - s_t) / (s[j] - s[j + 1])
-        flat = j * n + np.arange(n)
-        lo = [a.ravel()[flat] for a in arrays]
-        hi = [a.ravel()[flat + n] for a in arrays]
-        dsj = s[j] - s_t
-    vals = [l + w * (h - l) for l, h in zip(lo, hi)]
-    tv_t = vals[-2]
-    vals[-1] = lo[-1] + (0.5 * _R / _G) * (lo[-2] + tv_t) * dsj
-    del vals[-2]
-    return [np.where(inside, v, np.nan) for v in vals]
+    s_t = np.ascontiguousarray(np.broadcast_to(np.asarray(s_t, float), (prof.n,)))
+    f_t, z_t = _compiled.at_log_pressure(prof.s, prof.tv if field is None else field, prof.tv, z, prof.k0, prof.k1,
+                                         s_t, 0.5 * _R / _G)
+    return (None if field is None else f_t), z_t
 
 
 def _moist_layer_depth(prof: _Profile, threshold):
@@ -707,11 +685,11 @@ def _diagnose(prof: _Profile, mu_depth=DEFAULT_MOST_UNSTABLE_DEPTH, moist_thresh
                       ("el_pressure", "s_el")):
         res[name] = np.stack([np.exp(s0 if key is None else sb[key]), np.exp(s_mu if key is None else mu[key])]) / 100.0
     res["lcl_temperature"] = np.stack([sb["t_lcl"], mu["t_lcl"]])
-    res["lcl_height"] = np.stack([_at_log_pressure(prof, [], a["s_lcl"])[0] for a in (sb, mu)])
+    res["lcl_height"] = np.stack([_at_log_pressure(prof, None, a["s_lcl"])[1] for a in (sb, mu)])
     res["cape"] = np.stack([sb["cape"], mu["cape"]])
     res["cin"] = np.stack([sb["cin"], mu["cin"]])
-    t850, z850 = _at_log_pressure(prof, [prof.t], math.log(85000.0))
-    t500, z500 = _at_log_pressure(prof, [prof.t], math.log(50000.0))
+    t850, z850 = _at_log_pressure(prof, prof.t, math.log(85000.0))
+    t500, z500 = _at_log_pressure(prof, prof.t, math.log(50000.0))
     res["lapse_rate_850_500"] = 1000.0 * (t850 - t500) / (z500 - z850)
     res["moist_layer_depth"] = _moist_layer_depth(prof, moist_threshold) / 100.0
     res["clipped"] = prof.cache.get("clipped", (0, 0))
