@@ -594,16 +594,23 @@ def lift_columns(
                 "mu_depth": float(most_unstable_depth), "moist_threshold": float(moist_threshold),
                 "unlifted": reference is None},
     )
-    if reference is None:
+    if reference is None:  # same kernel, same coordinates: no alignment needed
         names = [f"unlifted_{name}" for name, _, _ in _CHANGES]
-        reference = ds[names].rename({f"unlifted_{name}": name for name, _, _ in _CHANGES})
+        long_names = {name: by_name[name].attrs.get("long_name", name) for name, _, _ in _CHANGES}
+        diffs = {}
+        for name, _, _ in _CHANGES:
+            diffs[name] = ds[name].copy(data=ds[name].data - ds[f"unlifted_{name}"].data)
+            diffs[name].attrs = {}
         ds = ds.drop_vars(names)
-    missing = [name for name, _, _ in _CHANGES if name not in reference]
-    if missing:
-        raise MissingVariableError(f"reference lacks {missing}; pass the output of qgforce.moist.column_diagnostics")
-    for name, units, meaning in _CHANGES:
-        ds[f"{name}_change"] = (ds[name] - reference[name]).assign_attrs(
-            units=units, long_name=f"change of {reference[name].attrs.get('long_name', name)} by the lifting (positive: {meaning})")
+    else:
+        missing = [name for name, _, _ in _CHANGES if name not in reference]
+        if missing:
+            raise MissingVariableError(f"reference lacks {missing}; pass the output of qgforce.moist.column_diagnostics")
+        long_names = {name: reference[name].attrs.get("long_name", name) for name, _, _ in _CHANGES}
+        diffs = {name: ds[name] - reference[name] for name, _, _ in _CHANGES}
+    ds = ds.assign({f"{name}_change": diffs[name].assign_attrs(
+        units=units, long_name=f"change of {long_names[name]} by the lifting (positive: {meaning})")
+        for name, units, meaning in _CHANGES})
     ds.attrs = {
         "qgforce_duration_hours": float(hours),
         "qgforce_time_dim": str(time_dim),
