@@ -609,7 +609,8 @@ def _build_vorticity_advection(ctx: _Context) -> xr.DataArray:
 
 
 def _build_differential_vorticity_advection(ctx: _Context, a_eta: xr.DataArray) -> xr.DataArray:
-    term = ddp(a_eta) * -ctx.prefactor
+    term = ddp(a_eta)
+    term *= -ctx.prefactor  # in place: a fresh whole-record array is slow to fault in
     return _finish(
         ctx.select(term), ctx.phi, "differential_vorticity_advection",
         {**ctx.attrs(), "qgforce_prefactor": ctx.prefactor_text},
@@ -627,7 +628,8 @@ def _build_thermal_advection_term(ctx: _Context) -> xr.DataArray:
 
 def _build_beta_term(ctx: _Context, v_north: xr.DataArray) -> xr.DataArray:
     beta = ctx.on_grid(ctx.grid.beta())
-    term = ddp(v_north) * (beta * ctx.prefactor)
+    term = ddp(v_north)
+    term *= beta * ctx.prefactor
     return _finish(
         ctx.select(term), ctx.phi, "beta_term",
         {**ctx.attrs(), "qgforce_prefactor": ctx.prefactor_text,
