@@ -24,7 +24,7 @@ from scipy.special import lambertw
 
 from qgforce import constants as C
 from qgforce import moist as M
-from qgforce.errors import DataQualityWarning, GridError, MissingVariableError
+from qgforce.errors import DataQualityWarning, GridError, InputDataError, MissingVariableError
 
 R, CP, G, EPS, KAPPA = C.DRY_AIR_GAS_CONSTANT, C.DRY_AIR_SPECIFIC_HEAT_P, C.GRAVITY, C.EPSILON, C.KAPPA
 T0C = C.ZERO_CELSIUS
@@ -432,3 +432,14 @@ def test_blocks_on_threads_equal_one_thread_and_count_clipping_once(monkeypatch)
     for c in (5, M._BLOCK - 1, M._BLOCK, n - 1):
         one = M.column_diagnostics(tt.isel(column=[c]), qq.isel(column=[c]))
         xr.testing.assert_identical(one.isel(column=0), runs[2].isel(column=c))
+
+
+def test_thread_count_from_the_environment(monkeypatch):
+    monkeypatch.setenv(M.THREADS_ENV, "3")
+    assert M._block_threads() == 3
+    monkeypatch.delenv(M.THREADS_ENV)
+    assert 1 <= M._block_threads() <= 8
+    for bad in ("0", "two", "-1"):
+        monkeypatch.setenv(M.THREADS_ENV, bad)
+        with pytest.raises(InputDataError, match="QGFORCE_NUM_THREADS must be a whole number"):
+            M._block_threads()
