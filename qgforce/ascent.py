@@ -50,7 +50,6 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from . import _compiled
 from . import constants as C
 from . import moist as M
 from ._units import parse_units, to_si
@@ -152,9 +151,9 @@ def _advance(p, m, col, tau, om, plev, k0, k1, stop=None):
     f64 = np.ascontiguousarray
     stop = np.full(np.shape(p), np.nan) if stop is None else stop
     with np.errstate(all="ignore"):
-        return _compiled.follow_parcels(f64(p, float), f64(m, np.intp), f64(col, np.intp), f64(tau, float),
-                                        f64(om, float), f64(plev, float), f64(k0, np.intp), f64(k1, np.intp),
-                                        f64(stop, float))
+        return M._kernels().follow_parcels(f64(p, float), f64(m, np.intp), f64(col, np.intp), f64(tau, float),
+                                           f64(om, float), f64(plev, float), f64(k0, np.intp), f64(k1, np.intp),
+                                           f64(stop, float))
 
 
 def _move(p, m, col, dur, flow: _Flow, plev, k0, k1, stop=None):
@@ -203,8 +202,8 @@ def _lift_parcels(prof, flow: _Flow, dur):
     s = prof.s
     with np.errstate(all="ignore"):
         if len(flow.omega) == 1:
-            pend = _compiled.follow_levels(np.ascontiguousarray(flow.omega[0], float), plev, prof.k0, prof.k1,
-                                           np.ascontiguousarray(dur, float))
+            pend = M._kernels().follow_levels(np.ascontiguousarray(flow.omega[0], float), plev, prof.k0, prof.k1,
+                                              np.ascontiguousarray(dur, float))
         else:
             idx = np.arange(nz)[:, None]
             kk, cc = np.nonzero((idx >= prof.k0) & (idx < prof.k1))
@@ -243,7 +242,7 @@ def _regrid(prof, sf, tf, qf):
     :func:`qgforce._compiled.regrid_parcels`.
     """
     with np.errstate(all="ignore"):
-        return _compiled.regrid_parcels(prof.s, sf, tf, qf, prof.t, prof.q, prof.k0, prof.k1)
+        return M._kernels().regrid_parcels(prof.s, sf, tf, qf, prof.t, prof.q, prof.k0, prof.k1)
 
 
 def _lifted_profile(prof, flow, dur):

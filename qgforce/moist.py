@@ -55,7 +55,6 @@ from dataclasses import dataclass, field
 import numpy as np
 import xarray as xr
 
-from . import _compiled
 from . import constants as C
 from .errors import DataQualityWarning, GridError, InputDataError, MissingVariableError
 
@@ -344,6 +343,14 @@ def _adiabats() -> _AdiabatTable:
     return _AdiabatTable()
 
 
+def _kernels():
+    """The compiled column loops, :mod:`qgforce._compiled` (imported on first use: importing
+    numba takes a fifth of a second, which ``import qgforce`` and the command line need not pay)."""
+    from . import _compiled
+
+    return _compiled
+
+
 # ----------------------------------------------------------------------------- column profiles
 @dataclass
 class _Profile:
@@ -574,7 +581,7 @@ def _ascend(s, tv_env, k1, s0, t0, q0, kfirst, env=None):
     # convection, if any, is dry: it may start anywhere
     s_gate = np.where(has_lcl, s_lcl, np.inf)
     f64 = functools.partial(np.ascontiguousarray, dtype=np.float64)
-    cin, net, cape_el, s_lfc, s_el, found, b_last = _compiled.buoyancy_integrals(
+    cin, net, cape_el, s_lfc, s_el, found, b_last = _kernels().buoyancy_integrals(
         f64(s), f64(np.exp(_K * s)), f64(tv_env), np.ascontiguousarray(env, np.intp), table.level_rows(s), np.ascontiguousarray(k1, np.intp),
         np.ascontiguousarray(kfirst, np.intp), f64(s0), f64(t0 * fv), f64(s_lcl), f64(t_lcl * fv), f64(s_gate),
         f64(t0 * np.exp(-_K * s0) * fv), np.ascontiguousarray(i_lab, np.intp), f64(w_lab), 0.5 * _R)
@@ -593,7 +600,7 @@ def _ascend(s, tv_env, k1, s0, t0, q0, kfirst, env=None):
 # ------------------------------------------------------------------------- layer diagnostics
 def _heights(prof: _Profile):
     """Heights [m] above the lowest valid level, hypsometric: dz = (R_d/g) T_v d(−ln p), T_v linear in ln p."""
-    return _compiled.heights(prof.s, prof.tv, prof.k0, prof.k1, 0.5 * _R / _G)
+    return _kernels().heights(prof.s, prof.tv, prof.k0, prof.k1, 0.5 * _R / _G)
 
 
 def _at_log_pressure(prof: _Profile, field, s_t):
@@ -608,7 +615,7 @@ def _at_log_pressure(prof: _Profile, field, s_t):
     if z is None:
         z = prof.cache["z"] = _heights(prof)
     s_t = np.ascontiguousarray(np.broadcast_to(np.asarray(s_t, float), (prof.n,)))
-    f_t, z_t = _compiled.at_log_pressure(prof.s, prof.tv if field is None else field, prof.tv, z, prof.k0, prof.k1,
+    f_t, z_t = _kernels().at_log_pressure(prof.s, prof.tv if field is None else field, prof.tv, z, prof.k0, prof.k1,
                                          s_t, 0.5 * _R / _G)
     return (None if field is None else f_t), z_t
 
