@@ -31,7 +31,8 @@ the write to disk, shared by the workers, bounds the speed-up (measured 2026-12-
 columns per task: 7.6 and 4.9 s per step, 1.55×, against 23.6 and 13.9 s, 1.70×, compressed).
 The horizontal diagnostics run on blocks of about 12 MiB of levels (``levels_per_chunk="auto"``
 of :func:`~qgforce.stream.compute_record`; 5 levels here), which lowered the peak from 2.50 to
-1.98 GB and gave 18.1 and 9.7 s per step, 1.87× (measured 2026-12-02).
+1.98 GB and gave 18.1 and 9.7 s per step, 1.87× (measured 2026-12-02; again with the vertical
+terms scaled in place: 1.95 GB, 15.2 and 8.3 s per step, 1.84×).
 
 Run ``python benchmarks/bench_stream.py [--quick]``; set ``QGFORCE_BENCH_DIR`` to choose where
 the record is written (default: the system's temporary directory).  It is deleted afterwards.
