@@ -379,7 +379,6 @@ class _Context:
             sub = _Context({n: da.isel({d: s for d, s in indexer.items() if d in da.dims})
                             for n, da in self.fields.items()},
                            self.grid, self.cor, self.smoothing, self.out_levels, self.level_values)
-            sub.__dict__["coriolis_local"] = self.coriolis_local  # horizontal: the same for every slab
             for name, part in horizontal(sub).items():
                 if name not in full:
                     full[name] = self._allocate(part)

@@ -27,6 +27,7 @@ Haltiner, G. J. and R. T. Williams, 1980: *Numerical Prediction and Dynamic Mete
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -320,9 +321,20 @@ class Grid:
         return dx * dy
 
     def coriolis(self, latitude_deg=None) -> np.ndarray:
-        """Coriolis parameter f = 2Ω sin φ [s-1], shape (ny, nx) (or of ``latitude_deg``)."""
-        lat = self.latitude if latitude_deg is None else np.asarray(latitude_deg, dtype=np.float64)
-        return 2.0 * C.EARTH_ANGULAR_VELOCITY * np.sin(np.deg2rad(lat))
+        """Coriolis parameter f = 2Ω sin φ [s-1], shape (ny, nx) (or of ``latitude_deg``).
+
+        The grid's own field is computed once and returned read-only (the diagnostics ask for it
+        once per slab of levels).
+        """
+        if latitude_deg is None:
+            return self._coriolis
+        return 2.0 * C.EARTH_ANGULAR_VELOCITY * np.sin(np.deg2rad(np.asarray(latitude_deg, dtype=np.float64)))
+
+    @cached_property
+    def _coriolis(self) -> np.ndarray:
+        f = 2.0 * C.EARTH_ANGULAR_VELOCITY * np.sin(np.deg2rad(self.latitude))
+        f.setflags(write=False)
+        return f
 
     def beta(self, latitude_deg=None) -> np.ndarray:
         """Meridional gradient of f, β = 2Ω cos φ / a [m-1 s-1], shape (ny, nx)."""
