@@ -191,8 +191,8 @@ def _cache_level_lcl(prof):
 def _lift_parcels(prof, flow: _Flow, dur):
     """Displace the parcel of every level of every column for ``dur`` [s] (per column).
 
-    Returns ln p, temperature, specific humidity at the end and the saturation flag, (nz, N)
-    each, NaN outside the valid block.  The paths first (:func:`qgforce._compiled.follow_levels`
+    Returns the pressure [Pa], ln p, temperature, specific humidity at the end and the saturation
+    flag, (nz, N) each, NaN outside the valid block.  The paths first (:func:`qgforce._compiled.follow_levels`
     for a steady flow, :func:`_move` through the steps of a sequence), then the dry-adiabatic
     thermodynamics of every parcel, then every parcel that saturated in one pass through its LCL
     and pseudo-adiabat.
@@ -229,7 +229,7 @@ def _lift_parcels(prof, flow: _Flow, dur):
         tm = np.minimum(M._adiabats().temperature(lab, sf[kk, cc]), tf[kk, cc])
         tf[kk, cc] = tm
         qf[kk, cc] = M._q_from_e(M._es(tm), np.exp(sf[kk, cc]))
-    return sf, tf, qf, sat_all
+    return pend, sf, tf, qf, sat_all
 
 
 def _regrid(prof, sf, tf, qf):
@@ -247,8 +247,7 @@ def _regrid(prof, sf, tf, qf):
 
 def _lifted_profile(prof, flow, dur):
     """The lifted profile (a new _Profile) and the parcel end states."""
-    sf, tf, qf, sat = _lift_parcels(prof, flow, dur)
-    pf = np.exp(sf)
+    pf, sf, tf, qf, sat = _lift_parcels(prof, flow, dur)
     t_new, q_new, crossed = _regrid(prof, sf, tf, qf)
     nz = prof.p.size
     idx = np.arange(nz)[:, None]
@@ -270,9 +269,11 @@ def _lift_kernel(t, q, om, *, levels, step_hours, interpolation, hours, mu_depth
         if unlifted:
             # the diagnostics of the unlifted columns from the same profile, when ω covers them
             ref = M._make_profile(levels, tb, qb, copy=False)
-            idx = np.arange(ref.p.size)[:, None]
-            inside = (idx >= ref.k0) & (idx < ref.k1)
-            prof = ref if flow_ok[inside].all() else M._make_profile(levels, ref.t, ref.q, valid=flow_ok)
+            prof = ref
+            if not flow_ok.all():  # ω missing inside some valid block: lift only where it is given
+                idx = np.arange(ref.p.size)[:, None]
+                if not flow_ok[(idx >= ref.k0) & (idx < ref.k1)].all():
+                    prof = M._make_profile(levels, ref.t, ref.q, valid=flow_ok)
             prof.cache["clipped"] = ref.cache["clipped"]
             diag = M._diagnose(ref, mu_depth, moist_threshold)
             out.update({f"unlifted_{name}": diag[name] for name, _, _ in _CHANGES})
