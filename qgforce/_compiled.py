@@ -122,6 +122,22 @@ def _max_nan(a, b):
 
 
 @numba.njit(inline="always")
+def _crossing_time(dp, v0, v1):
+    """Time [s] to cross a layer of thickness ``dp`` entered at speed ``v0`` and left at ``v1``.
+
+    With ω linear in p across the layer, t = ln(v1/v0)/b = (dp/v0) ln(r)/(r − 1), r = v1/v0,
+    written stably for r near 1; inf unless v0 and v1 have the same sign (the air then never
+    reaches the far side).  The caller picks ``dp`` in the direction of v0.
+    """
+    if not (v0 * v1 > 0):
+        return np.inf
+    r = v1 / v0
+    y = r - 1.0
+    psi = 1.0 - 0.5 * y if abs(y) < 1e-7 else np.log(r) / y
+    return dp / v0 * psi
+
+
+@numba.njit(inline="always")
 def _follow(p, m, tau, c, om, plev, k0, k1, stop):
     """One parcel along the steady flow dp/dt = ω(p) for ``tau`` s (see ``ascent._advance``).
 
@@ -155,13 +171,7 @@ def _follow(p, m, tau, c, om, plev, k0, k1, stop):
         if not (has_t and v != 0 and ((p_new <= tgt) if up else (p_new >= tgt))):
             return _max_nan(p_new, 0.5 * plev[kt]), m, 0.0, False  # ends in this layer
         # reaches the target: after t = ln(ω(p₁)/ω(p₀))/b, written stably for small b
-        r = (om_lo + b * (tgt - p_lo)) / v
-        y = r - 1.0
-        if r > 0:
-            psi = 1.0 - 0.5 * y if abs(y) < 1e-7 else np.log(r) / y
-            t_cross = (tgt - p) / v * psi
-        else:
-            t_cross = np.inf
+        t_cross = _crossing_time(tgt - p, v, om_lo + b * (tgt - p_lo))
         p, tau = tgt, tau - min(_max_nan(t_cross, 0.0), tau)
         if use_stop:
             return p, m, tau, True
@@ -180,22 +190,6 @@ def follow_parcels(p, m, col, tau, om, plev, k0, k1, stop):
     for i in range(n):
         p_out[i], m_out[i], t_out[i], reached[i] = _follow(p[i], m[i], tau[i], col[i], om, plev, k0, k1, stop[i])
     return p_out, m_out, t_out, reached
-
-
-@numba.njit(inline="always")
-def _crossing_time(dp, v0, v1):
-    """Time [s] to cross a layer of thickness ``dp`` entered at speed ``v0`` and left at ``v1``.
-
-    With ω linear in p across the layer, t = ln(v1/v0)/b = (dp/v0) ln(r)/(r − 1), r = v1/v0,
-    written stably for r near 1 (as in :func:`_follow`); inf unless the flow carries the air
-    across (v0 and v1 both non-zero, of the same sign, and in the direction of ``dp``).
-    """
-    if not (v0 * dp > 0 and v1 * dp > 0):
-        return np.inf
-    r = v1 / v0
-    y = r - 1.0
-    psi = 1.0 - 0.5 * y if abs(y) < 1e-7 else np.log(r) / y
-    return dp / v0 * psi
 
 
 @numba.njit(**_JIT)
