@@ -12,7 +12,7 @@ Submodules not imported by name here: :mod:`qgforce.plot` (matplotlib, imported 
 :mod:`qgforce.cases` and :mod:`qgforce.selfcheck` (analytic checks).
 """
 
-__version__ = "0.1.0"
+from ._version import __version__
 
 from . import cases, scenario, selfcheck, solver
 
@@ -24,6 +24,7 @@ from .errors import (
     GridError,
     InputDataError,
     MissingVariableError,
+    OptionError,
     QGForceError,
     QGForceWarning,
     UnitsError,
@@ -152,6 +153,7 @@ __all__ = [
     "UnitsError",
     "GridError",
     "InputDataError",
+    "OptionError",
     "ConvergenceError",
     "QGForceWarning",
     "EquatorialMaskWarning",

@@ -17,7 +17,36 @@ import xarray as xr
 
 from .errors import UnitsError
 
-__all__ = ["units", "parse_units", "to_si"]
+__all__ = ["units", "parse_units", "to_si", "HPA_BELOW", "requested_pressure_pa"]
+
+#: A requested pressure (a level, a layer bound, a panel level) below this value is read as hPa,
+#: at or above it as Pa: the one rule of the library and the command line.  No tropospheric or
+#: stratospheric level in Pa is below 2000 Pa (20 hPa) in the data qgforce is meant for, and no
+#: pressure in hPa reaches 2000 (*common practice*).
+HPA_BELOW = 2000.0
+
+
+def requested_pressure_pa(values) -> np.ndarray:
+    """Requested pressures in Pa, as a 1-D float64 array: values below :data:`HPA_BELOW` are hPa.
+
+    Parameters
+    ----------
+    values : float or sequence of float
+        Pressures as a user writes them (``850``, ``[850, 500]``, ``85000.0``).
+
+    Returns
+    -------
+    numpy.ndarray
+        The same pressures in Pa.
+
+    Examples
+    --------
+    >>> requested_pressure_pa([850, 50000.0]).tolist()
+    [85000.0, 50000.0]
+    """
+    arr = np.atleast_1d(np.asarray(values, dtype=np.float64)).ravel()
+    return np.where(arr < HPA_BELOW, arr * 100.0, arr)
+
 
 # --- CF / UDUNITS spellings -------------------------------------------------------------------
 # UDUNITS writes exponents as trailing integers ("m2 s-2") and allows "." as the product;

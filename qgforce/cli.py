@@ -36,7 +36,7 @@ import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import __version__
+from ._version import __version__
 from .errors import InputDataError, QGForceError
 
 __all__ = ["main", "build_parser", "COMMANDS"]

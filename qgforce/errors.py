@@ -31,6 +31,13 @@ class InputDataError(QGForceError, ValueError):
     """Values are unusable (all NaN, NaN where a solve needs numbers, negative stability...)."""
 
 
+class OptionError(QGForceError, ValueError):
+    """An option has a value outside its allowed set or range (a method name, a count, a choice).
+
+    The message names the option, the value found and the values allowed.
+    """
+
+
 class ConvergenceError(QGForceError, RuntimeError):
     """An iterative solver did not reach its tolerance.
 
@@ -63,6 +70,7 @@ __all__ = [
     "UnitsError",
     "GridError",
     "InputDataError",
+    "OptionError",
     "ConvergenceError",
     "QGForceWarning",
     "EquatorialMaskWarning",

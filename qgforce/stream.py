@@ -45,7 +45,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from . import __version__
+from ._version import __version__
 from . import constants as C
 from .errors import InputDataError, QGForceError
 from .io import open_dataset

@@ -60,7 +60,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from . import __version__
+from ._version import __version__
 from .errors import InputDataError, MissingVariableError, QGForceError
 
 __all__ = [
