@@ -1,0 +1,388 @@
+"""Normalise a dataset: discovery, SI units, sorted grid, canonical names and dims.
+
+References
+----------
+Eaton, B. et al., 2023: *NetCDF Climate and Forecast (CF) Metadata Conventions*, version 1.11.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+import numpy as np
+import xarray as xr
+
+from .. import constants
+from .._units import to_si
+from ..errors import GridError, InputDataError, MissingVariableError, UnitsError
+from .coords import (
+    _check_isobaric,
+    _coordinate_attrs,
+    _longitude_layout,
+    _order_indexer,
+    _require_finite,
+    _sort_coordinate,
+)
+from .crs import _projected_latlon
+from .discover import _bounds_names, _check_names, _discover, _searched, _units_of
+from .table import (
+    _DATA_KEYS,
+    _EARTH_WIND_NAMES,
+    _GRID_WIND_NAMES,
+    _LINK_ATTRS,
+    _WIND_FRAMES,
+    _WIND_STANDARD_NAMES,
+    TABLE,
+)
+
+
+def _wind_frame(ds, data: dict, kind: str, wind_relative_to) -> str:
+    if wind_relative_to is not None:
+        return wind_relative_to
+    frames = set()
+    for key in ("u", "v"):
+        if key in data:
+            std = str(ds[data[key]].attrs.get("standard_name", ""))
+            if std in _EARTH_WIND_NAMES:
+                frames.add("earth")
+            elif std in _GRID_WIND_NAMES:
+                frames.add("grid")
+    if len(frames) > 1:
+        raise InputDataError(
+            "u and v disagree about their frame (one standard_name is earth-relative, the other "
+            "grid-relative); pass wind_relative_to='grid' or 'earth'"
+        )
+    if frames:
+        return frames.pop()
+    return "earth" if kind == "latlon" else "grid"
+
+
+def _missing_data_message(ds) -> str:
+    searched = "; ".join(f"{key}: {_searched(key)}" for key in _DATA_KEYS)
+    return (
+        f"no recognised data variable in the dataset (it has {sorted(map(str, ds.data_vars))}); "
+        f"{searched}"
+    )
+
+
+def normalize(
+    ds: xr.Dataset, names: Mapping | None = None, *, wind_relative_to: str | None = None
+) -> xr.Dataset:
+    """Return ``ds`` as a normalised qgforce dataset (see DEVELOPERS.md, "Normalised dataset").
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Model output on pressure levels, lat–lon or projected.  Not modified; the result may
+        share memory with it where no conversion or reordering was needed.
+    names : mapping, optional
+        Canonical name -> name in ``ds``, for variables and coordinates, with keys among
+        ``temperature, geopotential, geopotential_height, u, v, specific_humidity, omega,
+        level, latitude, longitude, x, y``.  Overrides discovery.
+    wind_relative_to : {"grid", "earth"}, optional
+        Frame of ``u``/``v``.  Default: from their standard_name (``eastward_wind`` -> earth,
+        ``grid_eastward_wind``/``x_wind`` -> grid), else earth on lat–lon grids and grid on
+        projected grids.
+
+    Returns
+    -------
+    xarray.Dataset
+        Data variables among ``temperature`` [K], ``geopotential`` [m2 s-2], ``u``, ``v``
+        [m s-1], ``specific_humidity`` [kg kg-1], ``omega`` [Pa s-1], float64, dims
+        ``(..., level, latitude, longitude)`` or ``(..., level, y, x)``; ``level`` [Pa]
+        decreasing.  ``attrs["qgforce_grid"]`` is ``"latlon"`` or ``"projected"``;
+        ``attrs["qgforce_dropped_variables"]`` lists (blank-separated) the data variables not
+        carried over; ``attrs["qgforce_longitude_wrap_dropped"]`` the longitude of a dropped
+        duplicated wrap column, if any.  Each variable records its original name and units in
+        ``qgforce_source_name`` and ``qgforce_source_units`` when they changed.
+
+    Raises
+    ------
+    MissingVariableError
+        No recognised data variable, no pressure coordinate, no horizontal coordinates, or a
+        ``names`` entry that is not in ``ds``.
+    UnitsError
+        Missing, unreadable or unconvertible units (all failures listed at once).
+    GridError
+        A vertical coordinate that is not pressure, duplicate or non-finite coordinate values,
+        a variable without the level or horizontal dimensions, an unreadable grid_mapping.
+    InputDataError
+        A numpy-backed field that is entirely NaN; ambiguous variables; bad arguments.
+
+    Notes
+    -----
+    Geopotential height Z (m or gpm) becomes geopotential Φ = g0 Z with g0 =
+    :data:`qgforce.constants.GRAVITY`: the geopotential metre is defined by WMO as
+    1 gpm = 9.80665 m2 s-2 (WMO Technical Regulations, WMO-No. 49; reference *from memory*).
+    When both are present geopotential is used.  Longitudes: see :func:`_longitude_layout`;
+    a global grid is returned on [0, 360).  NaN values (below-ground points) are kept.
+    Nothing is computed for dask-backed data; the all-NaN check then waits for
+    :func:`check_values`.
+    """
+    if not isinstance(ds, xr.Dataset):
+        raise InputDataError(f"normalize expects an xarray.Dataset; got {type(ds).__name__}")
+    names = _check_names(names)
+    if wind_relative_to not in (None,) + _WIND_FRAMES:
+        raise InputDataError(f"wind_relative_to must be None, 'grid' or 'earth'; got {wind_relative_to!r}")
+    coords, data = _discover(ds, names)
+    if not data:
+        raise MissingVariableError(_missing_data_message(ds))
+    dropped = [n for n in ds.data_vars if n not in data.values() and n not in coords.values()]
+    # bounds of the grid coordinates no longer match them once converted and sorted
+    dropped += [b for b in _bounds_names(ds, coords.values()) if b in ds.coords]
+    if "geopotential" in data and "geopotential_height" in data:
+        dropped.append(data.pop("geopotential_height"))
+
+    # --- vertical coordinate
+    if "level" not in coords:
+        raise MissingVariableError(f"no pressure level coordinate found; {_searched('level')}")
+    lev = coords["level"]
+    _check_isobaric(ds[lev], lev)
+
+    # --- horizontal coordinates
+    lat, lon = coords.get("latitude"), coords.get("longitude")
+    if lat and lon and ds[lat].ndim == 1 and ds[lon].ndim == 1:
+        kind, horizontal = "latlon", {"latitude": lat, "longitude": lon}
+    elif "x" in coords and "y" in coords:
+        kind, horizontal = "projected", {"x": coords["x"], "y": coords["y"]}
+        if not (lat and lon) and "crs" not in coords:
+            raise GridError(
+                f"projected grid ({coords['y']!r}, {coords['x']!r}) without 2-D latitude/longitude "
+                "or a CF grid_mapping variable; add one of them so positions on the Earth are known"
+            )
+    else:
+        raise MissingVariableError(
+            "no horizontal coordinates found: need 1-D latitude and longitude, or 1-D projection "
+            f"x and y with 2-D latitude/longitude or a grid_mapping. latitude: {_searched('latitude')}. "
+            f"longitude: {_searched('longitude')}. x: {_searched('x')}. y: {_searched('y')}"
+        )
+    if kind == "latlon":
+        coords.pop("x", None), coords.pop("y", None)
+
+    # --- keep what is known, as variables on their own dimensions
+    work = ds.drop_vars(dropped)
+    work = work.set_coords([n for n in coords.values() if n in work.data_vars])
+    if work[lev].ndim == 0:
+        work = work.expand_dims(lev)
+    for name in [lev, *horizontal.values()]:
+        dim = work[name].dims[0]
+        if dim != name:
+            work = work.swap_dims({dim: name})
+    ydim = horizontal.get("latitude", horizontal.get("y"))
+    xdim = horizontal.get("longitude", horizontal.get("x"))
+
+    # --- units to SI, every failure reported at once
+    targets = {name: key for key, name in data.items()}
+    targets.update({coords[k]: k for k in ("level", "latitude", "longitude", "x", "y") if k in coords})
+    failures: list[str] = []
+    si: dict[str, xr.DataArray] = {}
+    for name, key in targets.items():
+        da, text, spec = work[name], _units_of(work[name]), TABLE[key]
+        if text is None and "assumed_units" in spec:
+            da = da.assign_attrs(units=spec["assumed_units"])
+        elif isinstance(spec.get("cf_units"), tuple) and text.lower() in spec["cf_units"]:
+            da = da.assign_attrs(units=spec["units"])  # CF spellings in any letter case
+        try:
+            si[name] = to_si(da, TABLE[key]["units"], name=f"{name} ({key})")
+        except UnitsError as exc:
+            failures.append(str(exc))
+    if failures:
+        raise UnitsError(f"{len(failures)} unit problem(s):\n  " + "\n  ".join(failures))
+
+    # --- sort the grid: level decreasing, horizontal increasing (longitude contiguous)
+    def values_of(name):
+        return np.atleast_1d(np.asarray(si[name].data, dtype=np.float64))
+
+    extra_attrs = {}
+    p = values_of(lev)
+    _require_finite(p, lev)
+    if np.any(p <= 0):
+        raise GridError(f"pressure levels must be positive; {lev!r} has {p[p <= 0].tolist()} Pa")
+    order = {lev: _sort_coordinate(p, lev, decreasing=True)}
+    if kind == "latlon":
+        phi = values_of(lat)
+        if np.any(np.abs(phi) > 90.0 + 1e-6):
+            raise GridError(f"latitudes must lie in [-90, 90]; {lat!r} runs from {phi.min()} to {phi.max()}")
+        order[lat] = _sort_coordinate(phi, lat)
+        order[lon], lon_values, wrap = _longitude_layout(values_of(lon), lon)
+        if wrap is not None:
+            extra_attrs["qgforce_longitude_wrap_dropped"] = wrap
+    else:
+        for dim in (ydim, xdim):
+            order[dim] = _sort_coordinate(values_of(dim), dim)
+    new_values = {dim: values_of(dim)[o] for dim, o in order.items()}
+    if kind == "latlon":
+        new_values[lon] = lon_values
+    indexers = {d: ix for d, o in order.items() if (ix := _order_indexer(o, work.sizes[d])) is not None}
+
+    def reorder(da):
+        return da.isel({d: i for d, i in indexers.items() if d in da.dims})
+
+    work = work.isel(indexers) if indexers else work
+
+    # --- coordinates with their CF attributes
+    canonical = {lev: "level", ydim: "latitude" if kind == "latlon" else "y",
+                 xdim: "longitude" if kind == "latlon" else "x"}
+    new_coords = {
+        dim: xr.Variable(dim, new_values[dim], _coordinate_attrs(key, si[dim].attrs, 1))
+        for dim, key in canonical.items()
+    }
+    if kind == "projected":
+        if lat and lon:
+            for key, name in (("latitude", lat), ("longitude", lon)):
+                da = reorder(si[name])
+                if set(da.dims) != {ydim, xdim}:
+                    raise GridError(
+                        f"2-D {key} {name!r} has dims {da.dims}; expected the projection dims "
+                        f"({ydim!r}, {xdim!r})"
+                    )
+                da = da.transpose(ydim, xdim)
+                new_coords[name] = xr.Variable(da.dims, da.data, _coordinate_attrs(key, da.attrs, 2))
+        else:
+            phi2, lam2 = _projected_latlon(ds, coords["crs"], new_values[xdim], new_values[ydim])
+            lat, lon = "latitude", "longitude"
+            new_coords[lat] = xr.Variable((ydim, xdim), phi2, _coordinate_attrs("latitude", {}, 2))
+            new_coords[lon] = xr.Variable((ydim, xdim), lam2, _coordinate_attrs("longitude", {}, 2))
+    work = work.assign_coords(new_coords)
+
+    # --- data variables: SI, float64, dimension order, CF attributes
+    frame = _wind_frame(ds, data, kind, wind_relative_to)
+    gm = coords.get("crs")
+    new_data = {}
+    for key, name in data.items():
+        out_key = "geopotential" if key == "geopotential_height" else key
+        da = reorder(si[name])
+        missing = [d for d in (lev, ydim, xdim) if d not in da.dims]
+        if missing:
+            raise GridError(
+                f"{name!r} ({key}) has dims {da.dims}, without {missing}; every field must be on the "
+                f"pressure levels {lev!r} and the horizontal grid ({ydim!r}, {xdim!r})"
+            )
+        da = da.transpose(..., lev, ydim, xdim)
+        attrs = {k: v for k, v in da.attrs.items() if k not in _LINK_ATTRS}
+        values = da.data
+        if key == "geopotential_height":
+            values = values * constants.GRAVITY
+            attrs["long_name"] = TABLE[out_key]["long_name"]
+            attrs["qgforce_conversion"] = (
+                "geopotential = g0 x geopotential height, g0 = 9.80665 m s-2 (WMO geopotential metre)"
+            )
+        if key in ("u", "v"):
+            attrs["standard_name"] = _WIND_STANDARD_NAMES[(key, frame)]
+            attrs["wind_relative_to"] = frame
+        else:
+            attrs["standard_name"] = TABLE[out_key]["standard_names"][0]
+        attrs.setdefault(  # winds: named after their frame
+            "long_name", TABLE[out_key].get("long_name", attrs["standard_name"].replace("_", " "))
+        )
+        attrs["units"] = TABLE[out_key]["units"]
+        if gm is not None:
+            attrs["grid_mapping"] = "crs"
+        if name != out_key:
+            attrs["qgforce_source_name"] = str(name)
+        _check_not_all_nan(values, name)
+        new_data[name] = xr.Variable(da.dims, values, attrs)
+    work = work.assign(new_data)
+
+    # --- canonical names
+    rename = {name: ("geopotential" if key == "geopotential_height" else key) for key, name in data.items()}
+    rename.update(canonical)
+    if kind == "projected":
+        rename.update({lat: "latitude", lon: "longitude"})
+    if gm is not None:
+        rename[gm] = "crs"
+    rename = {old: new for old, new in rename.items() if old != new}
+    clash = sorted(new for new in rename.values() if new in work.variables and new not in rename)
+    if clash:
+        raise InputDataError(
+            f"cannot give the canonical names {clash}: variables with those names already exist and are "
+            "something else; rename or drop them first, or map them with names=..."
+        )
+    work = work.rename(rename)
+    if gm is not None:
+        work = work.set_coords("crs")
+    # the horizontal geometry (2-D latitude/longitude, map factor) is small and needed eagerly by
+    # every operator: load it now so building a Grid never computes a lazy dataset
+    eager = {c: work[c].load() for c in ("latitude", "longitude", "map_factor")
+             if c in work.coords and work[c].ndim == 2 and work[c].chunks is not None}
+    if eager:
+        work = work.assign_coords(eager)
+    previously = str(ds.attrs.get("qgforce_dropped_variables", "")).split()
+    work.attrs = {
+        **ds.attrs,
+        "qgforce_grid": kind,
+        "qgforce_dropped_variables": " ".join(previously + [str(n) for n in dropped]),
+        **extra_attrs,
+    }
+    return work
+
+
+def _check_not_all_nan(data, name: str) -> None:
+    """Raise if a numpy-backed field is entirely NaN (dask-backed fields are not computed)."""
+    if isinstance(data, np.ndarray) and data.size and bool(np.isnan(data).all()):
+        raise InputDataError(
+            f"{name} is entirely NaN; check the file (a masked or missing field?) or drop the variable"
+        )
+
+
+def check_values(ds: xr.Dataset) -> xr.Dataset:
+    """Check that no data variable of a normalised dataset is entirely NaN (computes).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A normalised dataset, numpy- or dask-backed.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``ds`` itself, for chaining.
+
+    Raises
+    ------
+    InputDataError
+        Naming every all-NaN variable.
+
+    Notes
+    -----
+    All reductions are computed together in one dask pass.
+    """
+    import dask
+
+    flags = dask.compute(*[ds[n].isnull().all().data for n in ds.data_vars])
+    bad = [str(n) for n, flag in zip(ds.data_vars, flags) if bool(flag)]
+    if bad:
+        raise InputDataError(
+            f"entirely NaN: {', '.join(bad)}; check the file (a masked or missing field?) or drop them"
+        )
+    return ds
+
+
+def require(ds: xr.Dataset, *canonical_names: str, why: str = "this computation") -> None:
+    """Raise unless the normalised dataset ``ds`` has every one of ``canonical_names``.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A normalised dataset.
+    *canonical_names : str
+        Keys of :data:`TABLE` with role "data" (``"temperature"``, ``"geopotential"``, ...).
+    why : str
+        What needs them, quoted in the message.
+
+    Raises
+    ------
+    MissingVariableError
+        Naming each missing variable, what discovery looked for and how to name it.
+    """
+    unknown = [n for n in canonical_names if n not in _DATA_KEYS]
+    if unknown:
+        raise InputDataError(
+            f"require: unknown canonical variable(s) {unknown}; known: {', '.join(_DATA_KEYS)}"
+        )
+    missing = [n for n in canonical_names if n not in ds.data_vars]
+    if missing:
+        raise MissingVariableError(
+            "; ".join(f"no {key} variable found (needed for {why}); {_searched(key)}" for key in missing)
+        )
+
