@@ -17,9 +17,17 @@ import xarray as xr
 import qgforce.io as qio
 from qgforce.constants import GRAVITY
 from qgforce.errors import GridError, InputDataError, MissingVariableError, UnitsError
+from qgforce.io.plausible import standard_atmosphere_height
 
 
 # ----------------------------------------------------------------------------- helpers
+def _standard_geopotential(lev, lev_units):
+    """g0 Z of the U.S. Standard Atmosphere 1976 at the levels, shaped (1, level, 1, 1): the
+    test fields have plausible magnitudes (qgforce.io.plausible checks them)."""
+    pa = np.asarray(lev, dtype=float) * {"hPa": 100.0, "mbar": 100.0, "kPa": 1000.0}.get(lev_units, 1.0)
+    return (9.80665 * standard_atmosphere_height(pa))[None, :, None, None]
+
+
 def make_raw(
     *,
     lev=(1000.0, 850.0, 500.0),
@@ -37,7 +45,7 @@ def make_raw(
     return xr.Dataset(
         {
             "t": (dims, 250.0 + 30.0 * rng.random(shape), {"units": t_units, "long_name": "Temperature"}),
-            "z": (dims, 1e4 * rng.random(shape), {"units": "m2 s-2"}),
+            "z": (dims, _standard_geopotential(lev, lev_units) + 1e3 * rng.random(shape), {"units": "m2 s-2"}),
             "u": (dims, rng.normal(size=shape).astype("float32"), {"units": "m s-1"}),
             "v": (dims, rng.normal(size=shape), {"units": "m s-1"}),
         },
@@ -366,7 +374,7 @@ def test_output_dtype_attrs_and_partial_nan():
 
 def test_input_dataset_is_not_modified():
     raw = make_raw(lat=(40.0, 20.0, 0.0, -20.0), lon=(-90.0, 0.0, 90.0, 180.0), lev=(500.0, 1000.0, 850.0))
-    raw["t"].attrs["units"] = "degC"
+    raw["t"] = (raw["t"] - 273.15).assign_attrs(raw["t"].attrs, units="degC")  # plausible in °C
     before = copy.deepcopy(raw)
     qio.normalize(raw)
     qio.open_dataset(raw)
@@ -497,7 +505,7 @@ def write(ds, path):
 
 def test_single_file_lazy_and_equal_to_eager(tmp_path, no_compute):
     raw = make_raw(lat=(40.0, 20.0, 0.0, -20.0), lon=(-90.0, 0.0, 90.0, 180.0))
-    raw["t"].attrs["units"] = "degC"
+    raw["t"] = (raw["t"] - 273.15).assign_attrs(raw["t"].attrs, units="degC")  # plausible in °C
     path = write(raw, tmp_path / "one.nc")
     lazy = qio.open_dataset(path)  # the raising scheduler proves no computation happens here
     for name in lazy.data_vars:

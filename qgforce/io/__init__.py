@@ -29,7 +29,10 @@ Eaton, B. et al., 2023: *NetCDF Climate and Forecast (CF) Metadata Conventions*,
 
 from .._units import to_si, units
 from .crs import _crs_from_cf, crs_from_cf
-from .normalize import check_values, normalize, require
+from .grib import grib_inventory, open_grib
+from .normalize import DUPLICATE_POLICIES, check_values, normalize, require
+from .plausible import PLAUSIBILITY_MODES, check_plausible, standard_atmosphere_height
+from .realisation import forecast_axes, select_realisation
 from .paths import _resolve_paths
 from .reader import open_dataset
 from .screen import BAD_FILE_POLICIES, _file_problem, _screen_files
@@ -42,6 +45,11 @@ __all__ = [
     "require",
     "check_values",
     "crs_from_cf",
+    "check_plausible",
+    "select_realisation",
+    "forecast_axes",
+    "open_grib",
+    "grib_inventory",
     "to_si",
     "units",
 ]

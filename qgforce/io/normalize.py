@@ -7,6 +7,7 @@ Eaton, B. et al., 2023: *NetCDF Climate and Forecast (CF) Metadata Conventions*,
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Mapping
 
 import numpy as np
@@ -14,7 +15,7 @@ import xarray as xr
 
 from .. import constants
 from .._units import to_si
-from ..errors import GridError, InputDataError, MissingVariableError, UnitsError
+from ..errors import DataQualityWarning, GridError, InputDataError, MissingVariableError, OptionError, UnitsError
 from .coords import (
     _check_isobaric,
     _coordinate_attrs,
@@ -24,7 +25,8 @@ from .coords import (
     _sort_coordinate,
 )
 from .crs import _projected_latlon
-from .discover import _bounds_names, _check_names, _discover, _searched, _units_of
+from .discover import _bounds_names, _check_names, _dimensionality_matches, _discover, _searched, _units_of
+from .plausible import PLAUSIBILITY_MODES, check_plausible
 from .table import (
     _DATA_KEYS,
     _EARTH_WIND_NAMES,
@@ -66,7 +68,13 @@ def _missing_data_message(ds) -> str:
 
 
 def normalize(
-    ds: xr.Dataset, names: Mapping | None = None, *, wind_relative_to: str | None = None
+    ds: xr.Dataset,
+    names: Mapping | None = None,
+    *,
+    wind_relative_to: str | None = None,
+    units: Mapping | None = None,
+    plausibility: str = "raise",
+    duplicates: str = "raise",
 ) -> xr.Dataset:
     """Return ``ds`` as a normalised qgforce dataset (see DEVELOPERS.md, "Normalised dataset").
 
@@ -83,6 +91,18 @@ def normalize(
         Frame of ``u``/``v``.  Default: from their standard_name (``eastward_wind`` -> earth,
         ``grid_eastward_wind``/``x_wind`` -> grid), else earth on lat–lon grids and grid on
         projected grids.
+    units : mapping, optional
+        Canonical name (or name in ``ds``) -> units string, replacing the ``units`` attribute
+        of that variable or coordinate before conversion: the fix for mislabelled metadata
+        (``{"geopotential": "m"}`` for heights labelled as geopotential, ``{"level": "hPa"}``,
+        ``{"temperature": "degC"}``).
+    plausibility : {"raise", "warn", "off"}
+        What to do when magnitudes do not fit their units (see
+        :func:`qgforce.io.plausible.check_plausible`).  Default "raise".
+    duplicates : {"raise", "keep_first"}
+        What to do with repeated values of a time-like dimension (datetime values, or a
+        dimension named ``time``, ``valid_time``, ``step``): raise an error listing them
+        (default), or keep the first of each with a :class:`~qgforce.errors.DataQualityWarning`.
 
     Returns
     -------
@@ -122,6 +142,16 @@ def normalize(
     if not isinstance(ds, xr.Dataset):
         raise InputDataError(f"normalize expects an xarray.Dataset; got {type(ds).__name__}")
     names = _check_names(names)
+    if plausibility not in PLAUSIBILITY_MODES:
+        raise OptionError(f"plausibility must be one of {PLAUSIBILITY_MODES}; got {plausibility!r}")
+    ds = _drop_duplicate_times(_apply_unit_overrides(ds, names, units), duplicates)
+    work = _normalize_grid(ds, names, wind_relative_to)
+    check_plausible(work, plausibility)
+    return work
+
+
+def _normalize_grid(ds: xr.Dataset, names: dict, wind_relative_to) -> xr.Dataset:
+    """Discovery, SI units, sorted grid, canonical names and dims: the body of :func:`normalize`."""
     if wind_relative_to not in (None,) + _WIND_FRAMES:
         raise InputDataError(f"wind_relative_to must be None, 'grid' or 'earth'; got {wind_relative_to!r}")
     coords, data = _discover(ds, names)
@@ -315,6 +345,70 @@ def normalize(
         **extra_attrs,
     }
     return work
+
+
+#: Names of dimensions that count as time axes even without datetime values (common practice).
+_TIME_DIM_NAMES = ("time", "valid_time", "step", "forecast_reference_time", "forecast_period")
+DUPLICATE_POLICIES = ("raise", "keep_first")
+
+
+def _drop_duplicate_times(ds: xr.Dataset, duplicates: str) -> xr.Dataset:
+    """Refuse (or thin to the first) repeated values along the time-like dimensions of ``ds``."""
+    if duplicates not in DUPLICATE_POLICIES:
+        raise OptionError(f"duplicates must be one of {DUPLICATE_POLICIES}; got {duplicates!r}")
+    for dim in list(ds.dims):
+        if dim not in ds.coords or ds[dim].ndim != 1:
+            continue
+        if not (dim in _TIME_DIM_NAMES or np.issubdtype(ds[dim].dtype, np.datetime64)):
+            continue
+        index = ds[dim].to_index()
+        repeated = index[index.duplicated()].unique()
+        if not len(repeated):
+            continue
+        listing = ", ".join(str(v) for v in repeated[:20]) + (" ..." if len(repeated) > 20 else "")
+        if duplicates == "raise":
+            raise InputDataError(
+                f"{len(repeated)} repeated value(s) of {dim!r}: {listing}; each map would overwrite the "
+                "other (overlapping files, or a file written twice?): remove the repeats, or pass "
+                "duplicates='keep_first' (command line: the matching option) to keep the first of each"
+            )
+        warnings.warn(
+            f"kept the first of each repeated value of {dim!r} ({listing})", DataQualityWarning, stacklevel=4
+        )
+        ds = ds.drop_duplicates(dim, keep="first")
+    return ds
+
+
+def _apply_unit_overrides(ds: xr.Dataset, names: dict, overrides: Mapping | None) -> xr.Dataset:
+    """``ds`` with the ``units`` attributes named in ``overrides`` replaced (a shallow copy).
+
+    Keys are canonical names (found by discovery) or names in ``ds``.  A geopotential given
+    units of length becomes a geopotential height (its standard_name is changed to match), and
+    a geopotential height given units of m2 s-2 a geopotential, so that discovery sees it right.
+    """
+    if not overrides:
+        return ds
+    if not isinstance(overrides, Mapping):
+        raise OptionError(f"units must be a mapping name -> units string; got {overrides!r}")
+    coords, data = _discover(ds, names)
+    found = {**coords, **data}
+    out = ds.copy(deep=False)
+    for key, text in overrides.items():
+        name = found.get(key, key if key in ds.variables else None)
+        if name is None:
+            raise MissingVariableError(
+                f"units={{{key!r}: {text!r}}}: no variable {key!r} (canonical or in the file); "
+                f"found {sorted(found)}; the file has {sorted(map(str, ds.variables))}"
+            )
+        attrs = {**out[name].attrs, "units": str(text), "qgforce_units_override": str(text)}
+        kind = _dimensionality_matches(str(text), "m")
+        std = attrs.get("standard_name")
+        if kind and std == "geopotential":
+            attrs["standard_name"] = "geopotential_height"
+        elif kind is False and std == "geopotential_height" and _dimensionality_matches(str(text), "m2 s-2"):
+            attrs["standard_name"] = "geopotential"
+        out[name].attrs = attrs
+    return out
 
 
 def _check_not_all_nan(data, name: str) -> None:

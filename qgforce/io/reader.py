@@ -10,14 +10,39 @@ from ..errors import InputDataError
 from .discover import _check_names, _discover
 from .normalize import normalize
 from .paths import _resolve_paths
+from .grib import is_grib, open_grib
 from .screen import _screen_files
 
 
 def _open_one(path: str, engine, **kwargs) -> xr.Dataset:
+    if engine == "cfgrib" or (engine is None and is_grib(path)):
+        return open_grib(path, chunks=kwargs.get("chunks"))
     try:
         return xr.open_dataset(path, engine=engine, **kwargs)
     except (OSError, ValueError, RuntimeError) as exc:
         raise InputDataError(f"cannot read {path!r} as NetCDF: {exc}") from exc
+
+
+def _open_grib_files(paths, chunks, names, combine_dim) -> xr.Dataset:
+    """Open GRIB files once each (the inventory is read once), chunk, and combine them."""
+    parts = [open_grib(p, chunks=None) for p in paths]
+    spec = _auto_chunks(parts[0], names) if chunks == "auto" else chunks
+    if spec is not None:
+        parts = [part.chunk(spec) for part in parts]
+    if len(parts) == 1:
+        return parts[0]
+    try:
+        if combine_dim is None:
+            return xr.combine_by_coords(parts, data_vars="minimal", coords="minimal", compat="override",
+                                        join="exact", combine_attrs="drop_conflicts")
+        return xr.combine_nested(parts, concat_dim=combine_dim, data_vars="minimal", coords="minimal",
+                                 compat="override", join="exact", combine_attrs="drop_conflicts")
+    except (ValueError, KeyError) as exc:
+        raise InputDataError(
+            f"cannot combine {len(paths)} GRIB files ({paths[0]!r} ... {paths[-1]!r}): {exc}; they must "
+            "share the grid and differ along one dimension (pass combine_dim=... to concatenate "
+            "them in the order given)"
+        ) from exc
 
 
 def _auto_chunks(ds: xr.Dataset, names: Mapping) -> dict:
@@ -47,13 +72,16 @@ def open_dataset(
     combine_dim: str | None = None,
     wind_relative_to: str | None = None,
     on_bad_file: str = "raise",
+    units: Mapping | None = None,
+    plausibility: str = "raise",
+    duplicates: str = "raise",
 ) -> xr.Dataset:
     """Open model output and return the normalised dataset (see :func:`normalize`).
 
     Parameters
     ----------
     source : str, os.PathLike, list of paths, or xarray.Dataset
-        One NetCDF file, a glob pattern (a string with ``*``, ``?`` or ``[`` that is not an
+        One NetCDF or GRIB (edition 1 or 2) file, a glob pattern (a string with ``*``, ``?`` or ``[`` that is not an
         existing path), a list of files, or a Dataset (never modified).
     names : mapping, optional
         Canonical name -> name in the file, for variables and coordinates (see :func:`normalize`).
@@ -63,17 +91,27 @@ def open_dataset(
         chunk.  ``None``: files are loaded into numpy arrays; a Dataset is left as given.
         Anything else is passed to xarray.
     engine : str, optional
-        xarray backend (``"netcdf4"``, ``"h5netcdf"``, ``"scipy"``); default: xarray's choice.
+        xarray backend (``"netcdf4"``, ``"h5netcdf"``, ``"scipy"``, ``"cfgrib"``); default: GRIB
+        files (recognised by their first bytes) through :func:`qgforce.io.grib.open_grib`, the
+        others by xarray's choice.
     combine_dim : str, optional
         For several files: concatenate along this dimension in the order given
         (``combine="nested"``).  Default: combine by coordinate values (``combine="by_coords"``).
     wind_relative_to : {"grid", "earth"}, optional
         Frame of ``u``/``v``; see :func:`normalize`.
     on_bad_file : {"raise", "skip"}
-        What to do with a file that fails the cheap check of its header and extent (unreadable,
-        truncated, not NetCDF): ``"raise"`` (default) an error naming every such file, or
+        What to do with a file that fails the screening (unreadable, truncated, not NetCDF or
+        GRIB, a corrupt GRIB message, a compressed NetCDF chunk that does not decompress; see
+        :func:`qgforce.io.screen._file_problem`): ``"raise"`` (default) an error naming every such file, or
         ``"skip"`` it with a :class:`~qgforce.errors.DataQualityWarning`, listing the skipped
         paths (one per line) in ``attrs["qgforce_skipped_files"]``.  Ignored for a Dataset.
+    units : mapping, optional
+        Units overrides for mislabelled metadata, e.g. ``{"geopotential": "m"}``; see
+        :func:`normalize`.
+    plausibility : {"raise", "warn", "off"}
+        Magnitude checks against units; see :func:`qgforce.io.plausible.check_plausible`.
+    duplicates : {"raise", "keep_first"}
+        Repeated times (in one file or across overlapping files); see :func:`normalize`.
 
     Returns
     -------
@@ -101,14 +139,24 @@ def open_dataset(
     (('level', 'latitude', 'longitude'), [85000.0, 50000.0], 278.15)
     """
     names = _check_names(names)
+    options = {"wind_relative_to": wind_relative_to, "units": units, "plausibility": plausibility,
+               "duplicates": duplicates}
     if isinstance(source, xr.Dataset):
         ds = source
         if chunks == "auto":
             ds = ds.chunk(_auto_chunks(ds, names))
         elif chunks is not None:
             ds = ds.chunk(chunks)
-        return normalize(ds, names, wind_relative_to=wind_relative_to)
+        return normalize(ds, names, **options)
     paths, skipped = _screen_files(_resolve_paths(source), engine, on_bad_file)
+    if engine == "cfgrib" or (engine is None and all(map(is_grib, paths))):
+        ds = _open_grib_files(paths, chunks, names, combine_dim)
+        if chunks is None:
+            ds = ds.load()
+        out = normalize(ds, names, **options)
+        if skipped:
+            out.attrs["qgforce_skipped_files"] = "\n".join(skipped)
+        return out
     with _open_one(paths[0], engine) as peek:
         spec = _auto_chunks(peek, names) if chunks == "auto" else chunks
     if len(paths) == 1:
@@ -123,7 +171,7 @@ def open_dataset(
             loaded = ds.load()
             ds.close()
             ds = loaded
-    out = normalize(ds, names, wind_relative_to=wind_relative_to)
+    out = normalize(ds, names, **options)
     if skipped:
         out.attrs["qgforce_skipped_files"] = "\n".join(skipped)
     return out

@@ -1,0 +1,205 @@
+"""GRIB editions 1 and 2 through ecCodes and cfgrib: the isobaric messages of a file.
+
+A GRIB file is a sequence of self-contained messages, one field each (WMO Manual on Codes,
+WMO-No. 306, Volume I.2, FM 92 GRIB; *from memory*).  :func:`grib_inventory` reads every
+message header with ecCodes, so a truncated or corrupt file is an error before anything is
+built (cfgrib alone skips a bad message and returns a shorter dataset).  :func:`open_grib`
+then opens, with cfgrib, the messages on pressure levels (``typeOfLevel`` ``isobaricInhPa`` or
+``isobaricInPa``), one variable at a time so that variables on different sets of levels are
+joined (NaN where a level is missing) instead of silently left out, and lists the other
+messages as dropped.  No index file is written (``indexpath=""``): model output folders are
+often read-only.
+"""
+
+from __future__ import annotations
+
+import collections
+import logging
+import os
+import warnings
+
+import xarray as xr
+
+from ..errors import DataQualityWarning, InputDataError
+
+#: First bytes of every GRIB message, editions 1 and 2 (WMO-No. 306, FM 92, section 0).
+GRIB_SIGNATURE = b"GRIB"
+#: ecCodes ``typeOfLevel`` values of isobaric surfaces, and the units of their level values.
+ISOBARIC_LEVEL_TYPES = {"isobaricInhPa": "hPa", "isobaricInPa": "Pa"}
+#: Where the level coordinate of every isobaric message ends up.
+_LEVEL_NAME = "isobaricInhPa"
+#: cfgrib keyword arguments shared by every open: never write an index file.
+_NO_INDEX = {"indexpath": ""}
+
+
+def is_grib(path: str) -> bool:
+    """Whether ``path`` starts with a GRIB message (``b"GRIB"``; editions 1 and 2)."""
+    if "://" in path:
+        return False
+    try:
+        with open(path, "rb") as handle:
+            return handle.read(4) == GRIB_SIGNATURE
+    except OSError:
+        return False
+
+
+def grib_inventory(path: str) -> list[dict]:
+    """One record per message of a GRIB file: shortName, typeOfLevel, level, edition, gridType.
+
+    Parameters
+    ----------
+    path : str
+        A GRIB 1 or GRIB 2 file.
+
+    Returns
+    -------
+    list of dict
+
+    Raises
+    ------
+    InputDataError
+        When a message cannot be read (a truncated file, a wrong message length, bytes that are
+        not GRIB), naming the file, the message number and ecCodes' reason, or when the file
+        holds no message at all.
+
+    Notes
+    -----
+    Reads every header (and ecCodes checks each message's declared length against the
+    ``7777`` end section), not the packed values.
+    """
+    import eccodes
+
+    records = []
+    with open(path, "rb") as handle:
+        while True:
+            try:
+                gid = eccodes.codes_grib_new_from_file(handle)
+            except Exception as exc:  # ecCodes raises its own error classes (gribapi.errors.*)
+                raise InputDataError(
+                    f"cannot read {path!r} as GRIB: message {len(records) + 1} is truncated or corrupt "
+                    f"({type(exc).__name__}: {exc}) after {len(records)} intact message(s); "
+                    "download or copy the file again"
+                ) from exc
+            if gid is None:
+                break
+            try:
+                records.append({key: eccodes.codes_get(gid, key) for key in
+                                ("shortName", "typeOfLevel", "level", "edition", "gridType")})
+            finally:
+                eccodes.codes_release(gid)
+    if not records:
+        raise InputDataError(f"cannot read {path!r} as GRIB: it holds no GRIB message")
+    return records
+
+
+def describe_dropped(records: list[dict]) -> list[str]:
+    """The messages that are not on pressure levels, as ``"<shortName> on <typeOfLevel> (n messages)"``."""
+    counts = collections.Counter(
+        (r["shortName"], r["typeOfLevel"]) for r in records if r["typeOfLevel"] not in ISOBARIC_LEVEL_TYPES
+    )
+    return [f"{name} on {kind} ({n} message{'s' * (n > 1)})" for (name, kind), n in sorted(counts.items())]
+
+
+class _SkipRecorder(logging.Handler):
+    """Collect cfgrib's log records: it logs, and goes on, when it leaves a variable out."""
+
+    def __init__(self):
+        super().__init__(logging.WARNING)
+        self.messages: list[str] = []
+
+    def emit(self, record):
+        self.messages.append(record.getMessage())
+
+
+def _open_variable(path: str, level_type: str, short_name: str, chunks) -> xr.Dataset:
+    """One variable on one isobaric level type, by cfgrib, its level coordinate in hPa."""
+    recorder = _SkipRecorder()
+    logger = logging.getLogger("cfgrib")
+    logger.addHandler(recorder)
+    try:
+        ds = xr.open_dataset(
+            path,
+            engine="cfgrib",
+            chunks=chunks,
+            backend_kwargs={**_NO_INDEX, "filter_by_keys": {"typeOfLevel": level_type, "shortName": short_name}},
+        )
+    except Exception as exc:  # cfgrib's DatasetBuildError and ecCodes errors have no common base
+        raise InputDataError(
+            f"cannot read {short_name!r} on {level_type} from {path!r}: {exc}; its messages do not form "
+            "one regular array (mixed analysis and forecast, or several grids?): split the file first"
+        ) from exc
+    finally:
+        logger.removeHandler(recorder)
+    if recorder.messages:
+        ds.close()
+        raise InputDataError(
+            f"cannot read {short_name!r} on {level_type} from {path!r} completely: "
+            + "; ".join(recorder.messages)
+            + "; its messages do not form one regular array: split the file first"
+        )
+    if level_type in ds.coords and ds[level_type].ndim == 0:  # one level: a dimension all the same
+        ds = ds.set_coords(level_type).expand_dims(level_type)
+        ds = ds.transpose(*[d for d in ds.dims if d not in ("latitude", "longitude")], ...)
+    if level_type != _LEVEL_NAME and level_type in ds.coords:
+        hpa = ds[level_type].values / 100.0
+        ds = ds.assign_coords({level_type: (level_type, hpa, {**ds[level_type].attrs, "units": "hPa"})})
+        ds = ds.rename({level_type: _LEVEL_NAME})
+    return ds
+
+
+def open_grib(path: str, chunks=None) -> xr.Dataset:
+    """The variables on pressure levels of a GRIB 1 or 2 file, as cfgrib lays them out.
+
+    Parameters
+    ----------
+    path : str
+        A GRIB file.
+    chunks : None, dict or int
+        Passed to xarray (dask-backed when not None).
+
+    Returns
+    -------
+    xarray.Dataset
+        Dimensions as cfgrib builds them: ``number`` (ensemble member), ``time`` (reference
+        time), ``step`` (forecast step), ``isobaricInhPa``, ``latitude``, ``longitude``, each
+        present when it has more than one value; ``valid_time`` beside them.  Variables on
+        different sets of levels are joined on the union of levels (NaN where absent).
+        ``attrs["qgforce_dropped_grib_messages"]`` lists (one per line) the messages that are
+        not on pressure levels.
+
+    Raises
+    ------
+    InputDataError
+        A truncated or corrupt file (:func:`grib_inventory`), no message on pressure levels
+        (naming what the file holds), messages that cfgrib cannot lay out as one array.
+
+    Warns
+    -----
+    DataQualityWarning
+        When messages on other level types (surface, model levels, heights) are dropped.
+    """
+    records = grib_inventory(path)
+    dropped = describe_dropped(records)
+    wanted = sorted({(r["typeOfLevel"], r["shortName"]) for r in records if r["typeOfLevel"] in ISOBARIC_LEVEL_TYPES})
+    if not wanted:
+        raise InputDataError(
+            f"{path!r} holds no GRIB message on pressure levels (typeOfLevel isobaricInhPa or isobaricInPa); "
+            f"it holds {'; '.join(dropped)}: qgforce needs fields on isobaric levels"
+        )
+    parts = [_open_variable(path, kind, name, chunks) for kind, name in wanted]
+    try:
+        ds = xr.merge(parts, join="outer", compat="no_conflicts", combine_attrs="drop_conflicts")
+    except (ValueError, xr.MergeError) as exc:
+        raise InputDataError(
+            f"cannot join the isobaric variables of {path!r} ({', '.join(n for _, n in wanted)}): {exc}; "
+            "they must share the grid and the time axes"
+        ) from exc
+    if dropped:
+        ds.attrs["qgforce_dropped_grib_messages"] = "\n".join(dropped)
+        warnings.warn(
+            f"{os.path.basename(path)}: read the messages on pressure levels; dropped the others: "
+            + "; ".join(dropped),
+            DataQualityWarning,
+            stacklevel=3,
+        )
+    return ds
