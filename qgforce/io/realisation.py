@@ -88,6 +88,8 @@ def _pick(ds, axis: str | None, value, what: str, keyword: str):
 def _coerce(value, available: np.ndarray):
     """``value`` in the type of ``available``: a step in hours (number) or a timedelta string."""
     if np.issubdtype(available.dtype, np.timedelta64):
+        if isinstance(value, np.timedelta64):
+            return value
         if isinstance(value, (int, float, np.integer, np.floating)):
             return np.timedelta64(int(round(float(value) * 3600)), "s")
         return np.timedelta64(pd.Timedelta(value))

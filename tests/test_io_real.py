@@ -1,0 +1,317 @@
+"""Real model output through qgforce.io: GRIB and NetCDF of the same ERA5 fields, checked
+against plain numpy; corrupt, truncated and mislabelled files refused clearly.
+
+Data: tests/data/ holds subsets of the ERA5 samples of the cfgrib 0.9.15.1 source distribution
+(tests/sample-data/era5-levels-members.{grib,nc}; Apache-2.0, see tests/data/README.md).
+Samples not committed here (Lambert, Gaussian, mixed levels, corrupt) are read from the
+unpacked cfgrib sdist when present, otherwise those tests skip saying so.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pytest
+import xarray as xr
+
+import qgforce
+import qgforce.io as qio
+from qgforce.constants import EARTH_ANGULAR_VELOCITY, EARTH_RADIUS, GRAVITY
+from qgforce.errors import DataQualityWarning, InputDataError, OptionError, QGForceError, UnitsError
+
+DATA = Path(__file__).parent / "data"
+GRIB = DATA / "era5-levels-members-subset.grib"
+NC = DATA / "era5-levels-members-subset.nc"
+SDIST = Path("/tmp/cfgrib/cfgrib-0.9.15.1/tests/sample-data")
+
+
+def sample(name: str) -> Path:
+    path = SDIST / name
+    if not path.exists():
+        pytest.skip(f"{name} of the cfgrib 0.9.15.1 sdist is not unpacked at {SDIST}")
+    return path
+
+
+def copy_to(tmp_path, source: Path) -> Path:
+    """A copy in a fresh folder, so that a test can prove nothing is written beside it."""
+    folder = tmp_path / "input"
+    folder.mkdir()
+    return Path(shutil.copy(source, folder))
+
+
+# ----------------------------------------------------------------------------- GRIB = NetCDF
+def test_grib_and_netcdf_read_to_the_same_normalised_values(tmp_path):
+    grib = copy_to(tmp_path, GRIB)
+    os.chmod(grib.parent, 0o555)  # a read-only folder, as model output often is
+    try:
+        g = qio.open_dataset(grib, chunks=None)
+    finally:
+        os.chmod(grib.parent, 0o755)
+    assert sorted(os.listdir(grib.parent)) == [grib.name]  # no .idx beside the input
+    n = qio.open_dataset(NC, chunks=None)
+    assert g["temperature"].dims == n["temperature"].dims == ("number", "time", "level", "latitude", "longitude")
+    for key in ("number", "time", "level", "latitude", "longitude"):
+        np.testing.assert_array_equal(g[key].values, n[key].values)
+    np.testing.assert_array_equal(g["valid_time"].values, n["valid_time"].values)
+    assert g["level"].values.tolist() == [85000.0, 50000.0]
+    # the NetCDF twin stores the values packed with scale_factor 0.1 (see tests/data/README.md)
+    np.testing.assert_allclose(g["geopotential"].values, n["geopotential"].values, rtol=0, atol=0.05)
+    np.testing.assert_allclose(g["temperature"].values, n["temperature"].values, rtol=0, atol=0.05)
+
+
+def test_grib_lazy_equals_eager(no_compute):
+    lazy = qio.open_dataset(GRIB)  # the raising scheduler: opening computes nothing
+    assert lazy["temperature"].chunks[:2] == ((1, 1), (1, 1))
+    import dask
+
+    with dask.config.set(scheduler="sync"):
+        xr.testing.assert_identical(lazy.compute(), qio.open_dataset(GRIB, chunks=None))
+
+
+def test_raw_grib_values_reach_the_normalised_dataset():
+    # raw message values by ecCodes itself (no cfgrib, no xarray): member 1, second time, 500 hPa
+    import eccodes
+
+    with open(GRIB, "rb") as handle:
+        while (gid := eccodes.codes_grib_new_from_file(handle)) is not None:
+            key = tuple(eccodes.codes_get(gid, k) for k in ("shortName", "number", "dataTime", "level"))
+            if key == ("z", 1, 1200, 500):
+                raw = eccodes.codes_get_values(gid).reshape(61, 120)  # north to south rows
+            eccodes.codes_release(gid)
+    ds = qio.open_dataset(GRIB, chunks=None)
+    got = ds["geopotential"].sel(number=1, level=50000.0).isel(time=1).values
+    np.testing.assert_array_equal(got, raw[::-1])  # latitudes increasing after normalisation
+
+
+def test_geostrophic_wind_at_500hpa_against_plain_numpy():
+    """u_g = -(1/(f a)) dΦ/dφ, v_g = (1/(f a cos φ)) dΦ/dλ (Holton & Hakim 2013, eq. 3.11),
+    by second-order centred differences written here in numpy on the raw file values."""
+    raw = xr.open_dataset(NC)
+    phi_raw = raw["z"].sel(isobaricInhPa=500.0).isel(number=0, time=0).values[::-1]  # south to north
+    lat = np.deg2rad(raw["latitude"].values[::-1])
+    dlat = lat[1] - lat[0]
+    dlon = np.deg2rad(3.0)
+    f = 2 * EARTH_ANGULAR_VELOCITY * np.sin(lat)[:, None]
+    dphi_dlat = (phi_raw[2:] - phi_raw[:-2]) / (2 * dlat)
+    dphi_dlon = (np.roll(phi_raw, -1, axis=1) - np.roll(phi_raw, 1, axis=1)) / (2 * dlon)
+    u_ref = -dphi_dlat / (f[1:-1] * EARTH_RADIUS)
+    v_ref = (dphi_dlon / (f * EARTH_RADIUS * np.cos(lat)[:, None]))[1:-1]
+
+    ds = qio.open_dataset(NC, chunks=None).isel(number=0, time=0).sel(level=[50000.0])
+    with pytest.warns(qgforce.EquatorialMaskWarning):
+        ug, vg = qgforce.geostrophic_wind(ds["geopotential"], coriolis="local")
+    band = (np.abs(np.rad2deg(lat[1:-1])) >= 30) & (np.abs(np.rad2deg(lat[1:-1])) <= 70)
+    got_u = ug.isel(level=0).values[1:-1][band]
+    got_v = vg.isel(level=0).values[1:-1][band]
+    assert np.nanmax(np.abs(u_ref[band])) > 20.0  # a real jet, not an empty field
+    np.testing.assert_allclose(got_u, u_ref[band], rtol=1e-9, atol=1e-9)
+    np.testing.assert_allclose(got_v, v_ref[band], rtol=1e-9, atol=1e-9)
+
+
+# ----------------------------------------------------------------------------- members and steps
+def test_forecast_axes_and_select_realisation_on_grib():
+    ds = qio.open_dataset(GRIB, chunks=None)
+    axes = qio.forecast_axes(ds)
+    assert axes["member"] == "number" and axes["member_values"] == [0, 1]
+    assert axes["step"] == "step" and axes["valid_time"] == "valid_time"
+    with pytest.raises(InputDataError, match=r"2 ensemble members \(number: 0, 1\); choose one with member="):
+        qio.select_realisation(ds)
+    with pytest.raises(InputDataError, match=r"member=7 is not among the ensemble members .*number: 0, 1"):
+        qio.select_realisation(ds, member=7)
+    one = qio.select_realisation(ds, member=1)
+    assert "number" not in one.dims and int(one["number"]) == 1
+    assert one["time"].values.tolist() == ds["valid_time"].values.tolist()
+    np.testing.assert_array_equal(one["temperature"].values, ds["temperature"].sel(number=1).values)
+
+
+def test_select_realisation_forecast_layout_uses_valid_time():
+    # a forecast layout as GRIB readers give it: reference time x step, valid time = time + step
+    ref = np.array(["2101-03-01T00", "2101-03-01T12"], dtype="datetime64[ns]")
+    steps = np.array([0, 6, 12], dtype="timedelta64[h]").astype("timedelta64[ns]")
+    ds = xr.Dataset(
+        {"t": (("time", "step"), np.arange(6.0).reshape(2, 3))},
+        coords={"time": ref, "step": steps, "valid_time": (("time", "step"), ref[:, None] + steps[None, :])},
+    )
+    with pytest.raises(InputDataError, match=r"3 forecast steps \(step: 0 h, 6 h, 12 h\); choose one with step="):
+        qio.select_realisation(ds)
+    with pytest.raises(InputDataError, match=r"step=3 is not among the forecast steps"):
+        qio.select_realisation(ds, step=3)
+    for chosen in (6, "6h", np.timedelta64(6, "h")):
+        out = qio.select_realisation(ds, step=chosen)
+        assert out["time"].values.tolist() == (ref + np.timedelta64(6, "h")).tolist()
+        assert out["forecast_reference_time"].values.tolist() == ref.tolist()
+        assert out["t"].values.tolist() == [1.0, 4.0]
+    with pytest.raises(InputDataError, match="member=0 was given, but the data have no ensemble member axis"):
+        qio.select_realisation(ds, member=0, step=0)
+
+
+# ----------------------------------------------------------------------------- other GRIB files
+def test_grib_mixed_level_types_keeps_isobaric_and_lists_the_rest():
+    path = sample("t_on_different_level_types.grib")
+    with pytest.warns(DataQualityWarning, match=r"dropped the others: t on hybrid \(1 message\)"):
+        ds = qio.open_dataset(path, chunks=None)
+    assert ds["level"].values.tolist() == [10000.0]
+    assert ds.attrs["qgforce_dropped_grib_messages"] == "t on hybrid (1 message)"
+
+
+def test_grib_levels_in_hpa_and_pa_are_joined():
+    ds = qio.open_dataset(sample("hpa_and_pa.grib"), chunks=None, plausibility="off")
+    assert ds["level"].values.tolist() == [100.0, 10.0, 1.0]  # 1 hPa, and 10 and 1 Pa messages
+
+
+def test_grib_variables_on_different_levels_are_all_kept():
+    ds = qio.open_dataset(sample("uv_on_different_levels.grib"), chunks=None)
+    assert set(ds.data_vars) == {"u", "v"}
+    v = ds["v"].isel(step=0)
+    assert ds["level"].size == 5 and int(v.isnull().all(axis=(1, 2)).sum()) == 2  # v lacks two levels
+
+
+@pytest.mark.parametrize("name", ["lambert_grid.grib", "regular_gg_pl.grib"])
+def test_grib_without_pressure_levels_is_refused_clearly(name):
+    with pytest.raises(InputDataError, match=r"holds no GRIB message on pressure levels .* it holds \w+ on \w+"):
+        qio.open_dataset(sample(name))
+
+
+def test_corrupt_and_truncated_grib_are_errors_not_shorter_datasets(tmp_path):
+    with pytest.raises(InputDataError, match=r"as GRIB: message 1 is truncated or corrupt"):
+        qio.open_dataset(sample("era5-levels-corrupted.grib"))
+    cut = tmp_path / "cut.grib"
+    cut.write_bytes(GRIB.read_bytes()[: GRIB.stat().st_size - 5000])
+    with pytest.raises(InputDataError, match=r"message 16 is truncated or corrupt .* after 15 intact"):
+        qio.open_dataset(cut)
+    with pytest.warns(DataQualityWarning, match="skipped 1 of 2 files"):
+        ds = qio.open_dataset([GRIB, cut], on_bad_file="skip", chunks=None)
+    assert ds.attrs["qgforce_skipped_files"] == str(cut)
+
+
+def test_describe_works_on_grib():
+    from qgforce.workflow import describe_inputs
+
+    found = describe_inputs(qio.open_dataset(GRIB), files=[str(GRIB)])
+    assert found.levels_hpa == [850.0, 500.0] and found.extra_dims == {"number": 2}
+    assert {row[0] for row in found.variables} == {"temperature", "geopotential"}
+    assert "temperature" in found.text()
+
+
+# ----------------------------------------------------------------------------- plausibility
+def test_height_labelled_as_geopotential_is_refused_naming_the_override(tmp_path):
+    # U.S. Standard Atmosphere 1976: 500 hPa at 5574 m, 850 hPa at 1457 m
+    np.testing.assert_allclose(qio.standard_atmosphere_height([50000.0, 85000.0, 30000.0]),
+                               [5574.0, 1457.0, 9164.0], atol=2.0)
+    raw = xr.open_dataset(NC).load()
+    raw["z"] = (raw["z"] / GRAVITY).assign_attrs(raw["z"].attrs)  # heights, still labelled m2 s-2
+    with pytest.raises(UnitsError, match=r"geopotential 'z' is 0.10\d times .* pass units=\{'geopotential': 'm'\}"):
+        qio.open_dataset(raw)
+    fixed = qio.open_dataset(raw, units={"geopotential": "m"}, chunks=None)
+    np.testing.assert_allclose(fixed["geopotential"].values, qio.open_dataset(NC, chunks=None)["geopotential"].values,
+                               rtol=1e-12)
+    with pytest.warns(DataQualityWarning, match="implausible values"):
+        qio.open_dataset(raw, plausibility="warn")
+    qio.open_dataset(raw, plausibility="off")
+    with pytest.raises(OptionError, match="plausibility must be one of"):
+        qio.open_dataset(raw, plausibility="maybe")
+
+
+def test_geopotential_labelled_as_height_is_refused():
+    raw = xr.open_dataset(NC).load()
+    raw["z"].attrs.update(units="m", standard_name="geopotential_height")
+    with pytest.raises(UnitsError, match=r"looks like geopotential \(m2 s-2\) labelled as a height"):
+        qio.open_dataset(raw)
+
+
+def test_hpa_labelled_pa_and_celsius_labelled_kelvin_and_fast_winds():
+    raw = xr.open_dataset(NC).load()
+    bad_levels = raw.assign_coords(isobaricInhPa=raw["isobaricInhPa"].assign_attrs(units="Pa"))
+    with pytest.raises(UnitsError, match=r"as if hPa values were labelled Pa; .*units=\{'level': 'hPa'\}"):
+        qio.open_dataset(bad_levels)
+    fixed = qio.open_dataset(bad_levels, units={"level": "hPa"}, chunks=None)
+    assert fixed["level"].attrs["qgforce_units_override"] == "hPa"  # the override is recorded
+    xr.testing.assert_equal(fixed, qio.open_dataset(raw, chunks=None))
+    celsius = raw.copy()
+    celsius["t"] = (raw["t"] - 273.15).assign_attrs(raw["t"].attrs)
+    with pytest.raises(UnitsError, match=r"temperature 't' .* as degrees Celsius labelled K would"):
+        qio.open_dataset(celsius)
+    windy = raw.copy()
+    windy["u"] = (raw["t"].dims, np.full(raw["t"].shape, 300.0), {"units": "m s-1", "standard_name": "eastward_wind"})
+    with pytest.raises(UnitsError, match=r"wind 'u' reaches 300 m s-1, above 150"):
+        qio.open_dataset(windy)
+
+
+def test_mislabel_exits_2_from_the_command_line(tmp_path, capsys):
+    from qgforce.cli import main
+
+    raw = xr.open_dataset(NC).load()
+    raw["z"] = (raw["z"] / GRAVITY).assign_attrs(raw["z"].attrs)
+    path = tmp_path / "heights.nc"
+    raw.to_netcdf(path)
+    assert issubclass(UnitsError, QGForceError)
+    assert main(["inspect", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "geopotential" in err and "units={'geopotential': 'm'}" in err
+
+
+# ----------------------------------------------------------------------------- duplicates, damage
+def test_duplicate_times_in_one_file_and_across_files(tmp_path):
+    raw = xr.open_dataset(NC).load()
+    twice = xr.concat([raw, raw.isel(time=[1])], dim="time")
+    with pytest.raises(InputDataError, match=r"1 repeated value\(s\) of 'time': 2017-01-01 12:00:00.*keep_first"):
+        qio.open_dataset(twice)
+    with pytest.warns(DataQualityWarning, match="kept the first"):
+        kept = qio.open_dataset(twice, duplicates="keep_first", chunks=None)
+    xr.testing.assert_identical(kept.drop_attrs() if hasattr(kept, "drop_attrs") else kept,
+                                qio.open_dataset(raw, chunks=None).drop_attrs()
+                                if hasattr(kept, "drop_attrs") else qio.open_dataset(raw, chunks=None))
+    first, second = tmp_path / "a.nc", tmp_path / "b.nc"
+    raw.to_netcdf(first)
+    changed = raw.isel(time=[1]).copy()
+    changed["t"] = changed["t"] + 1.0
+    changed.to_netcdf(second)
+    with pytest.raises(InputDataError, match=r"repeated value\(s\) of 'time'"):
+        qio.open_dataset([first, second], combine_dim="time")
+    with pytest.raises(OptionError, match="duplicates must be one of"):
+        qio.open_dataset(raw, duplicates="last")
+
+
+def _damage_compressed_chunk(path: Path, variable: str) -> None:
+    """Flip 64 bytes inside a compressed chunk of ``variable``, the file size unchanged.
+
+    Tries offsets from 55 % to 95 % of the file and keeps the first where netCDF4 still opens
+    the file (the header is intact) but fails to read ``variable`` (a chunk does not inflate).
+    """
+    import netCDF4
+
+    original = path.read_bytes()
+    for fraction in np.arange(0.55, 0.95, 0.05):
+        data = bytearray(original)
+        start = int(len(data) * fraction)
+        data[start:start + 64] = bytes(b ^ 0xFF for b in data[start:start + 64])
+        path.write_bytes(bytes(data))
+        try:
+            handle = netCDF4.Dataset(path)
+        except OSError:
+            continue
+        with handle:
+            try:
+                handle.variables[variable][...]
+            except (RuntimeError, OSError):
+                return
+    pytest.fail("found no offset that damages a chunk and leaves the header intact")
+
+
+def test_damaged_compressed_chunk_is_a_clear_error_and_skippable(tmp_path):
+    raw = xr.open_dataset(NC).load()
+    bad = tmp_path / "bad.nc"
+    raw.to_netcdf(bad, encoding={v: {"zlib": True, "chunksizes": (1, 1, 2, 61, 120)} for v in ("z", "t")})
+    size = bad.stat().st_size
+    _damage_compressed_chunk(bad, "t")
+    assert bad.stat().st_size == size
+    with pytest.raises(InputDataError, match=r"bad\.nc.* damaged compressed data in variable 't'"):
+        qio.open_dataset(bad)
+    good = tmp_path / "good.nc"
+    raw.isel(time=[0]).to_netcdf(good)
+    with pytest.warns(DataQualityWarning, match="skipped 1 of 2 files"):
+        ds = qio.open_dataset([good, bad], on_bad_file="skip", combine_dim="time", chunks=None)
+    assert ds.attrs["qgforce_skipped_files"] == str(bad)
