@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import warnings
 from collections.abc import Mapping
+from dataclasses import dataclass, field
 
 import numpy as np
 import xarray as xr
@@ -150,10 +151,42 @@ def normalize(
     return work
 
 
+@dataclass
+class _Plan:
+    """What normalisation found and decided, passed from one step to the next."""
+
+    coords: dict  # canonical coordinate key -> name in the dataset ("crs": the grid mapping)
+    data: dict  # canonical data key -> name in the dataset
+    dropped: list  # names left out
+    kind: str = ""  # "latlon" or "projected"
+    lev: str = ""
+    ydim: str = ""
+    xdim: str = ""
+    lat: str | None = None
+    lon: str | None = None
+    indexers: dict = field(default_factory=dict)  # isel indexers that sort the grid
+    values: dict = field(default_factory=dict)  # sorted coordinate values per dim
+    attrs: dict = field(default_factory=dict)  # extra dataset attributes
+
+    def reorder(self, da):
+        return da.isel({d: i for d, i in self.indexers.items() if d in da.dims})
+
+
 def _normalize_grid(ds: xr.Dataset, names: dict, wind_relative_to) -> xr.Dataset:
     """Discovery, SI units, sorted grid, canonical names and dims: the body of :func:`normalize`."""
     if wind_relative_to not in (None,) + _WIND_FRAMES:
         raise InputDataError(f"wind_relative_to must be None, 'grid' or 'earth'; got {wind_relative_to!r}")
+    plan = _plan(ds, names)
+    work = _keep_known(ds, plan)
+    si = _units_to_si(work, plan)
+    work = _sort_grid(work, si, plan)
+    work = work.assign_coords(_grid_coordinates(ds, si, plan))
+    work = work.assign(_data_variables(ds, si, plan, wind_relative_to))
+    return _canonical_names(ds, work, plan)
+
+
+def _plan(ds: xr.Dataset, names: dict) -> _Plan:
+    """Discovery: the variables kept and dropped, the level and the kind of horizontal grid."""
     coords, data = _discover(ds, names)
     if not data:
         raise MissingVariableError(_missing_data_message(ds))
@@ -162,20 +195,17 @@ def _normalize_grid(ds: xr.Dataset, names: dict, wind_relative_to) -> xr.Dataset
     dropped += [b for b in _bounds_names(ds, coords.values()) if b in ds.coords]
     if "geopotential" in data and "geopotential_height" in data:
         dropped.append(data.pop("geopotential_height"))
-
-    # --- vertical coordinate
     if "level" not in coords:
         raise MissingVariableError(f"no pressure level coordinate found; {_searched('level')}")
-    lev = coords["level"]
-    _check_isobaric(ds[lev], lev)
-
-    # --- horizontal coordinates
-    lat, lon = coords.get("latitude"), coords.get("longitude")
-    if lat and lon and ds[lat].ndim == 1 and ds[lon].ndim == 1:
-        kind, horizontal = "latlon", {"latitude": lat, "longitude": lon}
+    plan = _Plan(coords=coords, data=data, dropped=dropped, lev=coords["level"])
+    _check_isobaric(ds[plan.lev], plan.lev)
+    plan.lat, plan.lon = coords.get("latitude"), coords.get("longitude")
+    if plan.lat and plan.lon and ds[plan.lat].ndim == 1 and ds[plan.lon].ndim == 1:
+        plan.kind, plan.ydim, plan.xdim = "latlon", plan.lat, plan.lon
+        coords.pop("x", None), coords.pop("y", None)
     elif "x" in coords and "y" in coords:
-        kind, horizontal = "projected", {"x": coords["x"], "y": coords["y"]}
-        if not (lat and lon) and "crs" not in coords:
+        plan.kind, plan.ydim, plan.xdim = "projected", coords["y"], coords["x"]
+        if not (plan.lat and plan.lon) and "crs" not in coords:
             raise GridError(
                 f"projected grid ({coords['y']!r}, {coords['x']!r}) without 2-D latitude/longitude "
                 "or a CF grid_mapping variable; add one of them so positions on the Earth are known"
@@ -186,24 +216,26 @@ def _normalize_grid(ds: xr.Dataset, names: dict, wind_relative_to) -> xr.Dataset
             f"x and y with 2-D latitude/longitude or a grid_mapping. latitude: {_searched('latitude')}. "
             f"longitude: {_searched('longitude')}. x: {_searched('x')}. y: {_searched('y')}"
         )
-    if kind == "latlon":
-        coords.pop("x", None), coords.pop("y", None)
+    return plan
 
-    # --- keep what is known, as variables on their own dimensions
-    work = ds.drop_vars(dropped)
-    work = work.set_coords([n for n in coords.values() if n in work.data_vars])
-    if work[lev].ndim == 0:
-        work = work.expand_dims(lev)
-    for name in [lev, *horizontal.values()]:
+
+def _keep_known(ds: xr.Dataset, plan: _Plan) -> xr.Dataset:
+    """``ds`` without the dropped variables, the grid coordinates as their own dimensions."""
+    work = ds.drop_vars(plan.dropped)
+    work = work.set_coords([n for n in plan.coords.values() if n in work.data_vars])
+    if work[plan.lev].ndim == 0:
+        work = work.expand_dims(plan.lev)
+    for name in (plan.lev, plan.ydim, plan.xdim):
         dim = work[name].dims[0]
         if dim != name:
             work = work.swap_dims({dim: name})
-    ydim = horizontal.get("latitude", horizontal.get("y"))
-    xdim = horizontal.get("longitude", horizontal.get("x"))
+    return work
 
-    # --- units to SI, every failure reported at once
-    targets = {name: key for key, name in data.items()}
-    targets.update({coords[k]: k for k in ("level", "latitude", "longitude", "x", "y") if k in coords})
+
+def _units_to_si(work: xr.Dataset, plan: _Plan) -> dict:
+    """Every kept variable and grid coordinate in SI (name -> DataArray), all failures at once."""
+    targets = {name: key for key, name in plan.data.items()}
+    targets.update({plan.coords[k]: k for k in ("level", "latitude", "longitude", "x", "y") if k in plan.coords})
     failures: list[str] = []
     si: dict[str, xr.DataArray] = {}
     for name, key in targets.items():
@@ -218,70 +250,78 @@ def _normalize_grid(ds: xr.Dataset, names: dict, wind_relative_to) -> xr.Dataset
             failures.append(str(exc))
     if failures:
         raise UnitsError(f"{len(failures)} unit problem(s):\n  " + "\n  ".join(failures))
+    return si
 
-    # --- sort the grid: level decreasing, horizontal increasing (longitude contiguous)
+
+def _sort_grid(work: xr.Dataset, si: dict, plan: _Plan) -> xr.Dataset:
+    """Level decreasing, horizontal increasing (longitude contiguous); records the new values."""
+
     def values_of(name):
         return np.atleast_1d(np.asarray(si[name].data, dtype=np.float64))
 
-    extra_attrs = {}
+    lev = plan.lev
     p = values_of(lev)
     _require_finite(p, lev)
     if np.any(p <= 0):
         raise GridError(f"pressure levels must be positive; {lev!r} has {p[p <= 0].tolist()} Pa")
     order = {lev: _sort_coordinate(p, lev, decreasing=True)}
-    if kind == "latlon":
-        phi = values_of(lat)
+    if plan.kind == "latlon":
+        phi = values_of(plan.lat)
         if np.any(np.abs(phi) > 90.0 + 1e-6):
-            raise GridError(f"latitudes must lie in [-90, 90]; {lat!r} runs from {phi.min()} to {phi.max()}")
-        order[lat] = _sort_coordinate(phi, lat)
-        order[lon], lon_values, wrap = _longitude_layout(values_of(lon), lon)
+            raise GridError(f"latitudes must lie in [-90, 90]; {plan.lat!r} runs from {phi.min()} to {phi.max()}")
+        order[plan.lat] = _sort_coordinate(phi, plan.lat)
+        order[plan.lon], lon_values, wrap = _longitude_layout(values_of(plan.lon), plan.lon)
         if wrap is not None:
-            extra_attrs["qgforce_longitude_wrap_dropped"] = wrap
+            plan.attrs["qgforce_longitude_wrap_dropped"] = wrap
     else:
-        for dim in (ydim, xdim):
+        for dim in (plan.ydim, plan.xdim):
             order[dim] = _sort_coordinate(values_of(dim), dim)
-    new_values = {dim: values_of(dim)[o] for dim, o in order.items()}
-    if kind == "latlon":
-        new_values[lon] = lon_values
-    indexers = {d: ix for d, o in order.items() if (ix := _order_indexer(o, work.sizes[d])) is not None}
+    plan.values = {dim: values_of(dim)[o] for dim, o in order.items()}
+    if plan.kind == "latlon":
+        plan.values[plan.lon] = lon_values
+    plan.indexers = {d: ix for d, o in order.items() if (ix := _order_indexer(o, work.sizes[d])) is not None}
+    return work.isel(plan.indexers) if plan.indexers else work
 
-    def reorder(da):
-        return da.isel({d: i for d, i in indexers.items() if d in da.dims})
 
-    work = work.isel(indexers) if indexers else work
+def _canonical_dims(plan: _Plan) -> dict:
+    latlon = plan.kind == "latlon"
+    return {plan.lev: "level", plan.ydim: "latitude" if latlon else "y", plan.xdim: "longitude" if latlon else "x"}
 
-    # --- coordinates with their CF attributes
-    canonical = {lev: "level", ydim: "latitude" if kind == "latlon" else "y",
-                 xdim: "longitude" if kind == "latlon" else "x"}
+
+def _grid_coordinates(ds: xr.Dataset, si: dict, plan: _Plan) -> dict:
+    """The sorted grid coordinates with their CF attributes; 2-D latitude/longitude on projected grids."""
+    ydim, xdim = plan.ydim, plan.xdim
     new_coords = {
-        dim: xr.Variable(dim, new_values[dim], _coordinate_attrs(key, si[dim].attrs, 1))
-        for dim, key in canonical.items()
+        dim: xr.Variable(dim, plan.values[dim], _coordinate_attrs(key, si[dim].attrs, 1))
+        for dim, key in _canonical_dims(plan).items()
     }
-    if kind == "projected":
-        if lat and lon:
-            for key, name in (("latitude", lat), ("longitude", lon)):
-                da = reorder(si[name])
-                if set(da.dims) != {ydim, xdim}:
-                    raise GridError(
-                        f"2-D {key} {name!r} has dims {da.dims}; expected the projection dims "
-                        f"({ydim!r}, {xdim!r})"
-                    )
-                da = da.transpose(ydim, xdim)
-                new_coords[name] = xr.Variable(da.dims, da.data, _coordinate_attrs(key, da.attrs, 2))
-        else:
-            phi2, lam2 = _projected_latlon(ds, coords["crs"], new_values[xdim], new_values[ydim])
-            lat, lon = "latitude", "longitude"
-            new_coords[lat] = xr.Variable((ydim, xdim), phi2, _coordinate_attrs("latitude", {}, 2))
-            new_coords[lon] = xr.Variable((ydim, xdim), lam2, _coordinate_attrs("longitude", {}, 2))
-    work = work.assign_coords(new_coords)
+    if plan.kind != "projected":
+        return new_coords
+    if plan.lat and plan.lon:
+        for key, name in (("latitude", plan.lat), ("longitude", plan.lon)):
+            da = plan.reorder(si[name])
+            if set(da.dims) != {ydim, xdim}:
+                raise GridError(
+                    f"2-D {key} {name!r} has dims {da.dims}; expected the projection dims ({ydim!r}, {xdim!r})"
+                )
+            da = da.transpose(ydim, xdim)
+            new_coords[name] = xr.Variable(da.dims, da.data, _coordinate_attrs(key, da.attrs, 2))
+    else:
+        phi2, lam2 = _projected_latlon(ds, plan.coords["crs"], plan.values[xdim], plan.values[ydim])
+        plan.lat, plan.lon = "latitude", "longitude"
+        new_coords["latitude"] = xr.Variable((ydim, xdim), phi2, _coordinate_attrs("latitude", {}, 2))
+        new_coords["longitude"] = xr.Variable((ydim, xdim), lam2, _coordinate_attrs("longitude", {}, 2))
+    return new_coords
 
-    # --- data variables: SI, float64, dimension order, CF attributes
-    frame = _wind_frame(ds, data, kind, wind_relative_to)
-    gm = coords.get("crs")
+
+def _data_variables(ds: xr.Dataset, si: dict, plan: _Plan, wind_relative_to) -> dict:
+    """Data variables in SI, float64, dims ``(..., level, y, x)``, with their CF attributes."""
+    lev, ydim, xdim = plan.lev, plan.ydim, plan.xdim
+    frame = _wind_frame(ds, plan.data, plan.kind, wind_relative_to)
     new_data = {}
-    for key, name in data.items():
+    for key, name in plan.data.items():
         out_key = "geopotential" if key == "geopotential_height" else key
-        da = reorder(si[name])
+        da = plan.reorder(si[name])
         missing = [d for d in (lev, ydim, xdim) if d not in da.dims]
         if missing:
             raise GridError(
@@ -306,19 +346,22 @@ def _normalize_grid(ds: xr.Dataset, names: dict, wind_relative_to) -> xr.Dataset
             "long_name", TABLE[out_key].get("long_name", attrs["standard_name"].replace("_", " "))
         )
         attrs["units"] = TABLE[out_key]["units"]
-        if gm is not None:
+        if "crs" in plan.coords:
             attrs["grid_mapping"] = "crs"
         if name != out_key:
             attrs["qgforce_source_name"] = str(name)
         _check_not_all_nan(values, name)
         new_data[name] = xr.Variable(da.dims, values, attrs)
-    work = work.assign(new_data)
+    return new_data
 
-    # --- canonical names
-    rename = {name: ("geopotential" if key == "geopotential_height" else key) for key, name in data.items()}
-    rename.update(canonical)
-    if kind == "projected":
-        rename.update({lat: "latitude", lon: "longitude"})
+
+def _canonical_names(ds: xr.Dataset, work: xr.Dataset, plan: _Plan) -> xr.Dataset:
+    """Canonical names, the horizontal geometry loaded, the dataset attributes."""
+    gm = plan.coords.get("crs")
+    rename = {name: ("geopotential" if key == "geopotential_height" else key) for key, name in plan.data.items()}
+    rename.update(_canonical_dims(plan))
+    if plan.kind == "projected":
+        rename.update({plan.lat: "latitude", plan.lon: "longitude"})
     if gm is not None:
         rename[gm] = "crs"
     rename = {old: new for old, new in rename.items() if old != new}
@@ -340,9 +383,9 @@ def _normalize_grid(ds: xr.Dataset, names: dict, wind_relative_to) -> xr.Dataset
     previously = str(ds.attrs.get("qgforce_dropped_variables", "")).split()
     work.attrs = {
         **ds.attrs,
-        "qgforce_grid": kind,
-        "qgforce_dropped_variables": " ".join(previously + [str(n) for n in dropped]),
-        **extra_attrs,
+        "qgforce_grid": plan.kind,
+        "qgforce_dropped_variables": " ".join(previously + [str(n) for n in plan.dropped]),
+        **plan.attrs,
     }
     return work
 
