@@ -156,6 +156,7 @@ def test_grib_mixed_level_types_keeps_isobaric_and_lists_the_rest():
         ds = qio.open_dataset(path, chunks=None)
     assert ds["level"].values.tolist() == [10000.0]
     assert ds.attrs["qgforce_dropped_grib_messages"] == "t on hybrid (1 message)"
+    assert ds.attrs["qgforce_dropped_variables"] == "t(hybrid)"  # what the input description lists
 
 
 def test_grib_levels_in_hpa_and_pa_are_joined():

@@ -165,7 +165,9 @@ def open_grib(path: str, chunks=None) -> xr.Dataset:
         present when it has more than one value; ``valid_time`` beside them.  Variables on
         different sets of levels are joined on the union of levels (NaN where absent).
         ``attrs["qgforce_dropped_grib_messages"]`` lists (one per line) the messages that are
-        not on pressure levels.
+        not on pressure levels, and ``attrs["qgforce_dropped_variables"]`` names them as
+        ``shortName(typeOfLevel)`` (blank-separated, as :func:`qgforce.io.normalize` lists the
+        variables it drops).
 
     Raises
     ------
@@ -196,6 +198,11 @@ def open_grib(path: str, chunks=None) -> xr.Dataset:
         ) from exc
     if dropped:
         ds.attrs["qgforce_dropped_grib_messages"] = "\n".join(dropped)
+        # one blank-free token per variable and level type, carried on by normalize into the
+        # list of dropped variables that the input description shows
+        ds.attrs["qgforce_dropped_variables"] = " ".join(sorted({
+            f"{r['shortName']}({r['typeOfLevel']})" for r in records if r["typeOfLevel"] not in ISOBARIC_LEVEL_TYPES
+        }))
         warnings.warn(
             f"{os.path.basename(path)}: read the messages on pressure levels; dropped the others: "
             + "; ".join(dropped),
