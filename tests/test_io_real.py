@@ -317,3 +317,33 @@ def test_damaged_compressed_chunk_is_a_clear_error_and_skippable(tmp_path):
     with pytest.warns(DataQualityWarning, match="skipped 1 of 2 files"):
         ds = qio.open_dataset([good, bad], on_bad_file="skip", combine_dim="time", chunks=None)
     assert ds.attrs["qgforce_skipped_files"] == str(bad)
+
+
+def test_several_grib_files_combine_like_one(tmp_path):
+    import eccodes
+
+    parts = {0: bytearray(), 1200: bytearray()}
+    with open(GRIB, "rb") as handle:
+        while (gid := eccodes.codes_grib_new_from_file(handle)) is not None:
+            parts[eccodes.codes_get(gid, "dataTime")] += eccodes.codes_get_message(gid)
+            eccodes.codes_release(gid)
+    paths = []
+    for hhmm, data in parts.items():
+        paths.append(tmp_path / f"part_{hhmm:04d}.grib")
+        paths[-1].write_bytes(bytes(data))
+    whole = qio.open_dataset(GRIB, chunks=None)
+    xr.testing.assert_identical(qio.open_dataset(paths[::-1], chunks=None), whole)  # by time values
+    xr.testing.assert_identical(qio.open_dataset(str(tmp_path / "part_*.grib"), chunks=None), whole)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["part_0000.grib", "part_1200.grib"]  # no index files
+
+
+def test_real_forecast_steps_selected_by_valid_time():
+    ds = qio.open_dataset(sample("uv_on_different_levels.grib"), chunks=None)
+    axes = qio.forecast_axes(ds)
+    assert axes["step"] == "step" and len(axes["step_values"]) == 2
+    with pytest.raises(InputDataError, match=r"2 forecast steps \(step: 6 h, 12 h\)"):
+        qio.select_realisation(ds)
+    one = qio.select_realisation(ds, step="12h")
+    assert "step" not in one.dims
+    assert one["valid_time"].values == ds["valid_time"].sel(step=np.timedelta64(12, "h")).values
+    np.testing.assert_array_equal(one["u"].values, ds["u"].isel(step=1).values)

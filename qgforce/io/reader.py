@@ -23,6 +23,31 @@ def _open_one(path: str, engine, **kwargs) -> xr.Dataset:
         raise InputDataError(f"cannot read {path!r} as NetCDF: {exc}") from exc
 
 
+#: cfgrib's axes that are scalar coordinates in a file holding one value of them.
+_GRIB_AXES = ("number", "time", "step")
+
+
+def _promote_scalar_axes(parts: list) -> list:
+    """Make the GRIB axes that hold one value per file, but differ between files, dimensions.
+
+    cfgrib gives a file of one reference time a scalar ``time``; files to be combined along it
+    need it as a dimension.  The other scalar coordinates that differ between the files
+    (``valid_time``) go along the first promoted dimension, so none is silently taken from the
+    first file.
+    """
+    def differs(name):
+        return all(name in p.coords and p[name].ndim == 0 for p in parts) and len(
+            {p[name].values.item() for p in parts}) > 1
+
+    promoted = [name for name in _GRIB_AXES if differs(name)]
+    if not promoted:
+        return parts
+    riders = [str(n) for n in parts[0].coords if n not in promoted and parts[0][n].ndim == 0 and differs(n)]
+    parts = [p.expand_dims(promoted) for p in parts]
+    parts = [p.assign_coords({n: (promoted[0], [p[n].values], p[n].attrs) for n in riders}) for p in parts]
+    return [p.transpose(*[d for d in _GRIB_AXES if d in p.dims], ...) for p in parts]  # cfgrib's order
+
+
 def _open_grib_files(paths, chunks, names, combine_dim) -> xr.Dataset:
     """Open GRIB files once each (the inventory is read once), chunk, and combine them."""
     parts = [open_grib(p, chunks=None) for p in paths]
@@ -31,6 +56,7 @@ def _open_grib_files(paths, chunks, names, combine_dim) -> xr.Dataset:
         parts = [part.chunk(spec) for part in parts]
     if len(parts) == 1:
         return parts[0]
+    parts = _promote_scalar_axes(parts)
     try:
         if combine_dim is None:
             return xr.combine_by_coords(parts, data_vars="minimal", coords="minimal", compat="override",
