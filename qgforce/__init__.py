@@ -44,7 +44,7 @@ from .forcing import (
     vorticity_advection,
 )
 from .grid import Grid
-from .io import check_values, normalize, open_dataset, require
+from .io import check_values, forecast_axes, normalize, open_dataset, require, select_realisation
 from .kinematics import (
     absolute_vorticity,
     advection,
@@ -81,6 +81,8 @@ __all__ = [
     "normalize",
     "require",
     "check_values",
+    "select_realisation",
+    "forecast_axes",
     # grid and calculus
     "Grid",
     "ddx",

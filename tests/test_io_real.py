@@ -347,3 +347,25 @@ def test_real_forecast_steps_selected_by_valid_time():
     assert "step" not in one.dims
     assert one["valid_time"].values == ds["valid_time"].sel(step=np.timedelta64(12, "h")).values
     np.testing.assert_array_equal(one["u"].values, ds["u"].isel(step=1).values)
+
+
+def test_mixed_grib_and_netcdf_inputs_are_refused():
+    with pytest.raises(InputDataError, match=r"mix GRIB \(1\) and NetCDF \(1\) files.*open one format at a time"):
+        qio.open_dataset([GRIB, NC])
+
+
+def test_pa_labelled_hpa_and_bad_overrides():
+    raw = xr.open_dataset(NC).load()
+    in_pa = raw.assign_coords(isobaricInhPa=raw["isobaricInhPa"] * 100.0)  # 85000 ... still labelled hPa
+    in_pa["isobaricInhPa"].attrs.update(raw["isobaricInhPa"].attrs)
+    with pytest.raises(UnitsError, match=r"reach 8\.5e\+06 Pa, above any atmospheric pressure .*units=\{'level': 'Pa'\}"):
+        qio.open_dataset(in_pa)
+    xr.testing.assert_equal(qio.open_dataset(in_pa, units={"level": "Pa"}, chunks=None),
+                            qio.open_dataset(raw, chunks=None))
+    with pytest.raises(qgforce.MissingVariableError, match=r"units=\{'humidity': 'g/kg'\}: no variable 'humidity'"):
+        qio.open_dataset(raw, units={"humidity": "g/kg"})
+    with pytest.raises(OptionError, match="units must be a mapping"):
+        qio.open_dataset(raw, units="m")
+    # an override by the name in the file works as well as by the canonical name
+    xr.testing.assert_equal(qio.open_dataset(in_pa, units={"isobaricInhPa": "Pa"}, chunks=None),
+                            qio.open_dataset(raw, chunks=None))

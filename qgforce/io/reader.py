@@ -175,7 +175,14 @@ def open_dataset(
             ds = ds.chunk(chunks)
         return normalize(ds, names, **options)
     paths, skipped = _screen_files(_resolve_paths(source), engine, on_bad_file)
-    if engine == "cfgrib" or (engine is None and all(map(is_grib, paths))):
+    kinds = [is_grib(p) for p in paths]
+    if engine is None and any(kinds) and not all(kinds):
+        raise InputDataError(
+            f"the inputs mix GRIB ({sum(kinds)}) and NetCDF ({len(kinds) - sum(kinds)}) files, e.g. "
+            f"{paths[kinds.index(True)]!r} and {paths[kinds.index(False)]!r}; open one format at a time "
+            "(or convert one to the other first)"
+        )
+    if engine == "cfgrib" or (engine is None and all(kinds)):
         ds = _open_grib_files(paths, chunks, names, combine_dim)
         if chunks is None:
             ds = ds.load()
