@@ -71,25 +71,39 @@ def grib_inventory(path: str) -> list[dict]:
 
     records = []
     with open(path, "rb") as handle:
-        while True:
-            try:
-                gid = eccodes.codes_grib_new_from_file(handle)
-            except Exception as exc:  # ecCodes raises its own error classes (gribapi.errors.*)
-                raise InputDataError(
-                    f"cannot read {path!r} as GRIB: message {len(records) + 1} is truncated or corrupt "
-                    f"({type(exc).__name__}: {exc}) after {len(records)} intact message(s); "
-                    "download or copy the file again"
-                ) from exc
-            if gid is None:
-                break
-            try:
-                records.append({key: eccodes.codes_get(gid, key) for key in
-                                ("shortName", "typeOfLevel", "level", "edition", "gridType")})
-            finally:
-                eccodes.codes_release(gid)
+        # several fields may share one message (GRIB 2 section repetition, e.g. u and v
+        # together): multi-field reading on, from a clean state, and off again as cfgrib expects
+        eccodes.codes_grib_multi_support_on()
+        eccodes.codes_grib_multi_support_reset_file(handle)
+        try:
+            _read_headers(handle, path, records)
+        finally:
+            eccodes.codes_grib_multi_support_off()
     if not records:
         raise InputDataError(f"cannot read {path!r} as GRIB: it holds no GRIB message")
     return records
+
+
+def _read_headers(handle, path: str, records: list) -> None:
+    """Append one record per field of the open GRIB file ``handle`` (see :func:`grib_inventory`)."""
+    import eccodes
+
+    while True:
+        try:
+            gid = eccodes.codes_grib_new_from_file(handle)
+        except Exception as exc:  # ecCodes raises its own error classes (gribapi.errors.*)
+            raise InputDataError(
+                f"cannot read {path!r} as GRIB: message {len(records) + 1} is truncated or corrupt "
+                f"({type(exc).__name__}: {exc}) after {len(records)} intact message(s); "
+                "download or copy the file again"
+            ) from exc
+        if gid is None:
+            return
+        try:
+            records.append({key: eccodes.codes_get(gid, key) for key in
+                            ("shortName", "typeOfLevel", "level", "edition", "gridType")})
+        finally:
+            eccodes.codes_release(gid)
 
 
 def describe_dropped(records: list[dict]) -> list[str]:
@@ -111,35 +125,47 @@ class _SkipRecorder(logging.Handler):
         self.messages.append(record.getMessage())
 
 
-def _open_variable(path: str, level_type: str, short_name: str, chunks) -> xr.Dataset:
-    """One variable on one isobaric level type, by cfgrib, its level coordinate in hPa."""
+def _open_filtered(path: str, keys: dict, chunks) -> tuple[xr.Dataset, list[str]]:
+    """cfgrib's dataset of the messages matching ``keys``, and what cfgrib said it left out."""
     recorder = _SkipRecorder()
     logger = logging.getLogger("cfgrib")
     logger.addHandler(recorder)
     try:
-        ds = xr.open_dataset(
-            path,
-            engine="cfgrib",
-            chunks=chunks,
-            backend_kwargs={**_NO_INDEX, "filter_by_keys": {"typeOfLevel": level_type, "shortName": short_name}},
-        )
+        ds = xr.open_dataset(path, engine="cfgrib", chunks=chunks,
+                             backend_kwargs={**_NO_INDEX, "filter_by_keys": keys})
     except Exception as exc:  # cfgrib's DatasetBuildError and ecCodes errors have no common base
         raise InputDataError(
-            f"cannot read {short_name!r} on {level_type} from {path!r}: {exc}; its messages do not form "
-            "one regular array (mixed analysis and forecast, or several grids?): split the file first"
+            f"cannot read the messages {keys} of {path!r}: {exc}; they do not form one regular array "
+            "(mixed analysis and forecast, or several grids?): split the file first"
         ) from exc
     finally:
         logger.removeHandler(recorder)
-    if recorder.messages:
-        ds.close()
-        raise InputDataError(
-            f"cannot read {short_name!r} on {level_type} from {path!r} completely: "
-            + "; ".join(recorder.messages)
-            + "; its messages do not form one regular array: split the file first"
-        )
+    return ds, recorder.messages
+
+
+def _open_level_type(path: str, level_type: str, short_names: list, chunks) -> list:
+    """The variables on one isobaric level type: all in one pass when cfgrib can lay them out
+    together, otherwise one variable at a time (variables on different sets of levels)."""
+    ds, skipped = _open_filtered(path, {"typeOfLevel": level_type}, chunks)
+    parts = [ds]
+    for name in sorted(set(short_names) - set(map(str, ds.data_vars))):  # left out of the one pass
+        part, skipped = _open_filtered(path, {"typeOfLevel": level_type, "shortName": name}, chunks)
+        if skipped or name not in part.data_vars:
+            part.close()
+            raise InputDataError(
+                f"cannot read {name!r} on {level_type} from {path!r} completely: "
+                + ("; ".join(skipped) or "cfgrib found no variable")
+                + "; its messages do not form one regular array: split the file first"
+            )
+        parts.append(part)
+    return [_level_in_hpa(part, level_type) for part in parts]
+
+
+def _level_in_hpa(ds: xr.Dataset, level_type: str) -> xr.Dataset:
+    """The level coordinate as a dimension named ``isobaricInhPa``, in hPa."""
     if level_type in ds.coords and ds[level_type].ndim == 0:  # one level: a dimension all the same
         ds = ds.set_coords(level_type).expand_dims(level_type)
-        ds = ds.transpose(*[d for d in ds.dims if d not in ("latitude", "longitude")], ...)
+        ds = ds.transpose(*[d for d in ds.dims if d not in ("latitude", "longitude", "y", "x")], ...)
     if level_type != _LEVEL_NAME and level_type in ds.coords:
         hpa = ds[level_type].values / 100.0
         ds = ds.assign_coords({level_type: (level_type, hpa, {**ds[level_type].attrs, "units": "hPa"})})
@@ -188,7 +214,9 @@ def open_grib(path: str, chunks=None) -> xr.Dataset:
             f"{path!r} holds no GRIB message on pressure levels (typeOfLevel isobaricInhPa or isobaricInPa); "
             f"it holds {'; '.join(dropped)}: qgforce needs fields on isobaric levels"
         )
-    parts = [_open_variable(path, kind, name, chunks) for kind, name in wanted]
+    parts = []
+    for kind in sorted({kind for kind, _ in wanted}):
+        parts += _open_level_type(path, kind, [name for k, name in wanted if k == kind], chunks)
     try:
         ds = xr.merge(parts, join="outer", compat="no_conflicts", combine_attrs="drop_conflicts")
     except (ValueError, xr.MergeError) as exc:
@@ -196,6 +224,7 @@ def open_grib(path: str, chunks=None) -> xr.Dataset:
             f"cannot join the isobaric variables of {path!r} ({', '.join(n for _, n in wanted)}): {exc}; "
             "they must share the grid and the time axes"
         ) from exc
+    ds.attrs.pop("history", None)  # cfgrib's names the time of reading: not a property of the data
     if dropped:
         ds.attrs["qgforce_dropped_grib_messages"] = "\n".join(dropped)
         # one blank-free token per variable and level type, carried on by normalize into the
