@@ -3,7 +3,7 @@ against plain numpy; corrupt, truncated and mislabelled files refused clearly.
 
 Data: tests/data/ holds subsets of the ERA5 samples of the cfgrib 0.9.15.1 source distribution
 (tests/sample-data/era5-levels-members.{grib,nc}; Apache-2.0, see tests/data/README.md).
-Samples not committed here (Lambert, Gaussian, mixed levels, corrupt) are read from the
+Samples not committed here (Lambert GRIB 1 and 2, Gaussian, mixed levels, corrupt) are read from the
 unpacked cfgrib sdist when present, otherwise those tests skip saying so.
 """
 
@@ -369,3 +369,26 @@ def test_pa_labelled_hpa_and_bad_overrides():
     # an override by the name in the file works as well as by the canonical name
     xr.testing.assert_equal(qio.open_dataset(in_pa, units={"isobaricInhPa": "Pa"}, chunks=None),
                             qio.open_dataset(raw, chunks=None))
+
+
+def test_lambert_grib2_gets_projection_coordinates_and_grid_relative_winds():
+    # NCEP regional forecast on a Lambert conformal grid, GRIB 2 with u and v sharing messages
+    # (nam.t00z.awp21100.tm00.grib2 at the top of the cfgrib sdist)
+    path = SDIST.parent.parent / "nam.t00z.awp21100.tm00.grib2"
+    if not path.exists():
+        pytest.skip(f"{path.name} of the cfgrib 0.9.15.1 sdist is not unpacked at {path.parent}")
+    import pyproj
+
+    with pytest.warns(DataQualityWarning, match="dropped the others"):
+        ds = qio.open_dataset(path, chunks=None)
+    assert ds.attrs["qgforce_grid"] == "projected" and ds["level"].size == 19
+    assert set(ds.data_vars) == {"temperature", "geopotential", "u", "v", "omega"}
+    assert ds["u"].attrs["wind_relative_to"] == "grid"  # GRIB flag uvRelativeToGrid = 1
+    np.testing.assert_allclose(np.diff(ds["x"].values), 81271.0, rtol=1e-6)  # DxInMetres of the file
+    np.testing.assert_allclose(np.diff(ds["y"].values), 81271.0, rtol=1e-6)
+    # the CF mapping maps the projection coordinates back onto the file's own latitudes/longitudes
+    crs = qio.crs_from_cf(ds["crs"].attrs)
+    back = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+    lon, lat = back.transform(*np.meshgrid(ds["x"].values, ds["y"].values))
+    np.testing.assert_allclose(lat, ds["latitude"].values, atol=1e-6)
+    np.testing.assert_allclose(np.mod(lon, 360.0), np.mod(ds["longitude"].values, 360.0), atol=1e-6)

@@ -18,6 +18,7 @@ import logging
 import os
 import warnings
 
+import numpy as np
 import xarray as xr
 
 from ..errors import DataQualityWarning, InputDataError
@@ -28,6 +29,8 @@ GRIB_SIGNATURE = b"GRIB"
 ISOBARIC_LEVEL_TYPES = {"isobaricInhPa": "hPa", "isobaricInPa": "Pa"}
 #: Where the level coordinate of every isobaric message ends up.
 _LEVEL_NAME = "isobaricInhPa"
+#: ecCodes ``gridType`` values read: regular latitude-longitude, regular Gaussian, Lambert conformal.
+_GRID_TYPES = ("regular_ll", "regular_gg", "lambert")
 #: cfgrib keyword arguments shared by every open: never write an index file.
 _NO_INDEX = {"indexpath": ""}
 
@@ -173,6 +176,74 @@ def _level_in_hpa(ds: xr.Dataset, level_type: str) -> xr.Dataset:
     return ds
 
 
+def _lambert_coordinates(ds: xr.Dataset, path: str) -> xr.Dataset:
+    """Projection coordinates ``x``, ``y`` [m] and a CF ``crs`` variable for a Lambert grid.
+
+    cfgrib gives only 2-D latitude and longitude.  The CF grid mapping
+    ``lambert_conformal_conic`` (CF Conventions 1.11, Appendix F) is built from the GRIB keys
+    (Latin1, Latin2: standard parallels; LoV: central meridian; LaD: origin latitude) on the
+    sphere of the file's radius; the points are projected with pyproj and ``x``, ``y`` taken
+    from the first row and column, checked against the whole grid and the declared spacing
+    ``DxInMetres``.  Winds flagged relative to the grid (``uvRelativeToGrid``) get the CF
+    grid-relative standard names, so that normalisation knows their frame.
+    """
+    import pyproj
+
+    first = next(v for v in ds.data_vars.values() if v.attrs.get("GRIB_gridType") == "lambert")
+    a = first.attrs
+    radius = _earth_radius(path)
+    mapping = {
+        "grid_mapping_name": "lambert_conformal_conic",
+        "standard_parallel": [float(a["GRIB_Latin1InDegrees"]), float(a["GRIB_Latin2InDegrees"])],
+        "longitude_of_central_meridian": float(a["GRIB_LoVInDegrees"]),
+        "latitude_of_projection_origin": float(a.get("GRIB_LaDInDegrees", a["GRIB_Latin1InDegrees"])),
+        "false_easting": 0.0,
+        "false_northing": 0.0,
+        "earth_radius": radius,
+    }
+    crs = pyproj.CRS.from_cf(mapping)
+    to_map = pyproj.Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True)
+    xx, yy = to_map.transform(np.asarray(ds["longitude"].values), np.asarray(ds["latitude"].values))
+    x, y = xx[0, :], yy[:, 0]
+    spacing = float(a["GRIB_DxInMetres"])
+    regular = (np.abs(xx - x[None, :]).max() < 1e-3 * spacing and np.abs(yy - y[:, None]).max() < 1e-3 * spacing
+               and np.allclose(np.abs(np.diff(x)), spacing, rtol=1e-3))
+    if not regular:
+        raise InputDataError(
+            f"{path!r}: the Lambert grid's points do not lie on a regular {spacing:g} m grid of the projection "
+            f"built from its keys ({mapping}); the file's earth shape or projection keys are not understood"
+        )
+    ds = ds.assign_coords(
+        x=("x", x, {"standard_name": "projection_x_coordinate", "units": "m", "axis": "X"}),
+        y=("y", y, {"standard_name": "projection_y_coordinate", "units": "m", "axis": "Y"}),
+    )
+    ds["crs"] = xr.Variable((), 0, mapping)
+    for name, var in ds.data_vars.items():
+        if name == "crs":
+            continue
+        var.attrs["grid_mapping"] = "crs"
+        if var.attrs.get("GRIB_uvRelativeToGrid") == 1 and name in ("u", "v"):
+            var.attrs["standard_name"] = {"u": "grid_eastward_wind", "v": "grid_northward_wind"}[name]
+    return ds.set_coords("crs")
+
+
+def _earth_radius(path: str) -> float:
+    """Radius [m] of the spherical earth of the first message (ecCodes key ``radius``)."""
+    import eccodes
+
+    with open(path, "rb") as handle:
+        gid = eccodes.codes_grib_new_from_file(handle)
+        try:
+            return float(eccodes.codes_get(gid, "radius"))
+        except Exception as exc:  # ecCodes' KeyValueNotFoundError: an ellipsoidal earth
+            raise InputDataError(
+                f"{path!r}: the Lambert grid is defined on an ellipsoid (no ecCodes key 'radius'); qgforce "
+                "reads Lambert GRIB on a spherical earth only: regrid the file first"
+            ) from exc
+        finally:
+            eccodes.codes_release(gid)
+
+
 def open_grib(path: str, chunks=None) -> xr.Dataset:
     """The variables on pressure levels of a GRIB 1 or 2 file, as cfgrib lays them out.
 
@@ -224,6 +295,14 @@ def open_grib(path: str, chunks=None) -> xr.Dataset:
             f"cannot join the isobaric variables of {path!r} ({', '.join(n for _, n in wanted)}): {exc}; "
             "they must share the grid and the time axes"
         ) from exc
+    grid_types = {r["gridType"] for r in records if r["typeOfLevel"] in ISOBARIC_LEVEL_TYPES}
+    if grid_types - set(_GRID_TYPES):
+        raise InputDataError(
+            f"{path!r}: the isobaric messages are on a {', '.join(sorted(grid_types))} grid; qgforce reads GRIB "
+            f"on {', '.join(_GRID_TYPES)} grids: regrid the file first"
+        )
+    if grid_types == {"lambert"}:
+        ds = _lambert_coordinates(ds, path)
     ds.attrs.pop("history", None)  # cfgrib's names the time of reading: not a property of the data
     if dropped:
         ds.attrs["qgforce_dropped_grib_messages"] = "\n".join(dropped)
