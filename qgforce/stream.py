@@ -48,7 +48,7 @@ from . import constants as C
 from .errors import OptionError, QGForceError
 from .io import open_dataset
 from .output.cf import history_line
-from .output.netcdf import OUTPUT_DTYPES, PendingWrite, output_encoding, write_results
+from .output.netcdf import OUTPUT_DTYPES, PendingWrite, output_encoding, write_results  # noqa: F401 (public here)
 
 __all__ = [
     "compute_record",
