@@ -119,7 +119,7 @@ TABLE: dict[str, OutputVariable] = _rows(
     _V("differential_vorticity_advection", "forcing", _FORCING_UNITS, "differential vorticity advection term",
        form="traditional", rhs_term=True, ascent_sign=1),
     _V("thermal_advection_term", "forcing", _FORCING_UNITS, "thermal advection term", label="thermal advection",
-       form="traditional", rhs_term=True, ascent_sign=1),
+       title="thermal advection term", form="traditional", rhs_term=True, ascent_sign=1),
     _V("q_vector_x", "forcing", "m Pa-1 s-3", "eastward Q-vector"),
     _V("q_vector_y", "forcing", "m Pa-1 s-3", "northward Q-vector"),
     _V("q_vector_forcing", "forcing", _FORCING_UNITS, "Q-vector forcing", label="Q-vector convergence (-2 div Q)",
