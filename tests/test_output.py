@@ -76,13 +76,20 @@ def test_two_processes_racing_to_one_new_path_exactly_one_wins(tmp_path):
     assert _temps(tmp_path) == []
 
 
-def test_kill_9_mid_write_then_rerun_leaves_no_temp_file(tmp_path):
+def _stopped_writer(tmp_path: Path, signum: int) -> tuple[subprocess.Popen, Path, Path]:
+    """A writer stopped by ``signum`` while its temp file exists: (process, target, temp file)."""
     target = tmp_path / "res.nc"
     proc = _spawn(WRITER, target, tmp_path / "ready", tmp_path / "never", "x")
     _wait_for(tmp_path / "ready")
     left = Path((tmp_path / "ready").read_text())
-    proc.kill()  # SIGKILL: no handler runs
+    assert left.exists()
+    proc.send_signal(signum)
     proc.wait(timeout=30)
+    return proc, target, left
+
+
+def test_kill_9_mid_write_then_rerun_leaves_no_temp_file(tmp_path):
+    proc, target, left = _stopped_writer(tmp_path, signal.SIGKILL)  # no handler runs
     assert left.exists() and not target.exists()  # the dead process's temp file is still there
     with atomic_path(target) as tmp:  # the next run recognises it as stale (its pid is gone) and removes it
         tmp.write_text("fresh")
@@ -91,13 +98,7 @@ def test_kill_9_mid_write_then_rerun_leaves_no_temp_file(tmp_path):
 
 
 def test_sigterm_removes_the_temp_file_and_terminates(tmp_path):
-    target = tmp_path / "res.nc"
-    proc = _spawn(WRITER, target, tmp_path / "ready", tmp_path / "never", "x")
-    _wait_for(tmp_path / "ready")
-    left = Path((tmp_path / "ready").read_text())
-    assert left.exists()
-    proc.send_signal(signal.SIGTERM)
-    proc.wait(timeout=30)
+    proc, target, left = _stopped_writer(tmp_path, signal.SIGTERM)
     assert proc.returncode == -signal.SIGTERM  # the default action of the signal, re-raised after cleaning
     assert not left.exists() and not target.exists()
     assert list(tmp_path.iterdir()) == [tmp_path / "ready"]
