@@ -36,9 +36,8 @@ import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
-from ._units import HPA_BELOW
 from ._version import __version__
-from .errors import InputDataError, QGForceError
+from .errors import InputDataError, OptionError, QGForceError
 
 __all__ = ["main", "build_parser", "COMMANDS"]
 
@@ -230,7 +229,15 @@ def _show_default(value) -> str:
 
 # ============================================================================ reading option values
 def _fail(where: str, message: str):
-    raise InputDataError(f"{where}: {message}")
+    raise OptionError(f"{where}: {message}")
+
+
+def _shared(parser, value, where: str):
+    """``parser(value)`` of :mod:`qgforce.jobs.choices` (the rules the jobs apply), its message prefixed with the option."""
+    try:
+        return parser(value)
+    except OptionError as exc:
+        _fail(where, str(exc))
 
 
 def _text_list(value, where) -> list[str]:
@@ -293,12 +300,9 @@ def _convert(opt: _Option, value, where: str, base: Path | None):
         items = _text_list(value, where)
         if not items:
             _fail(where, "expected one or more pressures in hPa, e.g. 850,500")
-        levels = [_number(v, where) for v in items]
-        bad = [v for v in levels if not 0.0 < v < HPA_BELOW]  # the library's one hPa rule (_units)
-        if bad:
-            _fail(where, f"pressures are given in hPa, between 0 and {HPA_BELOW:g}; found "
-                  + ", ".join(f"{v:g}" for v in bad))
-        return levels
+        from .jobs.choices import pressures_hpa
+
+        return _shared(pressures_hpa, [_number(v, where) for v in items], where)
     if kind == "times":
         items = _text_list(value, where)
         if not items:
@@ -308,10 +312,9 @@ def _convert(opt: _Option, value, where: str, base: Path | None):
         items = _text_list(value, where)
         if len(items) != 4:
             _fail(where, f"expected four numbers LAT0,LAT1,LON0,LON1 (degrees), found {value!r}")
-        box = [_number(v, where) for v in items]
-        if not (-90.0 <= box[0] < box[1] <= 90.0):
-            _fail(where, f"latitudes must satisfy -90 <= LAT0 < LAT1 <= 90; found {box[0]:g}, {box[1]:g}")
-        return box
+        from .jobs.choices import region_numbers
+
+        return _shared(region_numbers, [_number(v, where) for v in items], where)
     if kind == "choice":
         text = str(value).strip().lower() if isinstance(value, str) else value
         if text not in opt.choices:

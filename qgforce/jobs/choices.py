@@ -12,11 +12,12 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from .._units import requested_pressure_pa
+from .._units import HPA_BELOW, requested_pressure_pa
 from ..errors import InputDataError, OptionError
 from ._common import _as_list, _hpa, _stamp, _time_dim, _time_text
 
-__all__ = ["FORMS", "CORIOLIS", "select_times", "levels_pa", "region_box", "crop", "check_choice"]
+__all__ = ["FORMS", "CORIOLIS", "select_times", "levels_pa", "region_box", "region_numbers", "pressures_hpa", "crop",
+           "check_choice"]
 
 #: Omega forms accepted by the compute job (``"both"``: the Q-vector form first).
 FORMS = ("qvector", "traditional", "both")
@@ -85,6 +86,51 @@ def select_times(ds: xr.Dataset, times=None) -> xr.Dataset:
     return ds.isel({dim: sorted(set(chosen))})
 
 
+def region_numbers(region) -> list:
+    """A region as four numbers ``[lat0, lat1, lon0, lon1]`` in degrees, latitudes checked.
+
+    Parameters
+    ----------
+    region : str or sequence
+        ``"35,60,-150,-100"`` or four numbers.
+
+    Raises
+    ------
+    OptionError
+        Not four finite numbers, or not -90 <= lat0 < lat1 <= 90.
+    """
+    try:
+        box = [float(v) for v in _as_list(region)]
+    except (TypeError, ValueError) as exc:
+        raise OptionError(f"a region is four numbers lat0,lat1,lon0,lon1 in degrees; got {region!r}") from exc
+    if len(box) != 4 or not np.all(np.isfinite(box)):
+        raise OptionError(f"a region is four numbers lat0,lat1,lon0,lon1 in degrees; got {region!r}")
+    lat0, lat1 = box[:2]
+    if not -90.0 <= lat0 < lat1 <= 90.0:
+        raise OptionError(f"region latitudes must satisfy -90 <= lat0 < lat1 <= 90; got {lat0:g}, {lat1:g}")
+    return box
+
+
+def pressures_hpa(values) -> list:
+    """Requested pressures written in hPa (as the command line takes them), checked.
+
+    Raises
+    ------
+    OptionError
+        A value that is not a number, or not in (0, 2000) hPa: the library reads 2000 and more as
+        Pa (:data:`qgforce._units.HPA_BELOW`), so such a value would not mean what was typed.
+    """
+    try:
+        numbers = [float(v) for v in _as_list(values)]
+    except (TypeError, ValueError) as exc:
+        raise OptionError(f"pressures are numbers in hPa, e.g. 850,500; got {values!r}") from exc
+    bad = [v for v in numbers if not 0.0 < v < HPA_BELOW]
+    if bad:
+        raise OptionError(f"pressures are given in hPa, between 0 and {HPA_BELOW:g}; found "
+                          + ", ".join(f"{v:g}" for v in bad))
+    return numbers
+
+
 def levels_pa(ds: xr.Dataset, levels) -> np.ndarray | None:
     """Requested levels (hPa, or Pa when 2000 or more) as Pa values of the data, checked."""
     items = _as_list(levels)
@@ -117,15 +163,8 @@ def region_box(ds: xr.Dataset, region) -> dict | None:
     """
     if region is None:
         return None
-    try:
-        box = [float(v) for v in _as_list(region)]
-    except (TypeError, ValueError) as exc:
-        raise OptionError(f"a region is four numbers lat0,lat1,lon0,lon1 in degrees; got {region!r}") from exc
-    if len(box) != 4:
-        raise OptionError(f"a region is lat0,lat1,lon0,lon1 in degrees; got {region!r}")
+    box = region_numbers(region)
     lat0, lat1, lon0, lon1 = box
-    if not (-90.0 <= min(lat0, lat1) and max(lat0, lat1) <= 90.0) or lat0 >= lat1:
-        raise OptionError(f"region latitudes must satisfy -90 <= lat0 < lat1 <= 90; got {lat0:g}, {lat1:g}")
     if lon1 <= lon0:
         lon1 += 360.0
     lat = np.asarray(ds["latitude"].values, dtype=float)
