@@ -20,7 +20,7 @@ command-line flags override the file, ``[compute]`` overrides ``[defaults]``.
 Exit status: 0 on success; 2 for a user error (bad path, unreadable file, missing variable, bad
 option value, existing output without ``--overwrite``), reported as one line
 ``qgforce: error: ...`` on standard error with nothing written; 1 when the self-check fails;
-130 when interrupted.  The work itself lives in :mod:`qgforce.workflow`; this module only parses,
+130 when interrupted.  The work itself lives in :mod:`qgforce.jobs`; this module only parses,
 checks and prints.
 """
 
@@ -37,7 +37,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ._version import __version__
-from .errors import InputDataError, QGForceError
+from .errors import InputDataError, OptionError, QGForceError
 
 __all__ = ["main", "build_parser", "COMMANDS"]
 
@@ -229,7 +229,15 @@ def _show_default(value) -> str:
 
 # ============================================================================ reading option values
 def _fail(where: str, message: str):
-    raise InputDataError(f"{where}: {message}")
+    raise OptionError(f"{where}: {message}")
+
+
+def _shared(parser, value, where: str):
+    """``parser(value)`` of :mod:`qgforce.jobs.choices` (the rules the jobs apply), its message prefixed with the option."""
+    try:
+        return parser(value)
+    except OptionError as exc:
+        _fail(where, str(exc))
 
 
 def _text_list(value, where) -> list[str]:
@@ -292,11 +300,9 @@ def _convert(opt: _Option, value, where: str, base: Path | None):
         items = _text_list(value, where)
         if not items:
             _fail(where, "expected one or more pressures in hPa, e.g. 850,500")
-        levels = [_number(v, where) for v in items]
-        bad = [v for v in levels if not 0.0 < v < 2000.0]
-        if bad:
-            _fail(where, f"pressures are given in hPa, between 0 and 2000; found {', '.join(f'{v:g}' for v in bad)}")
-        return levels
+        from .jobs.choices import pressures_hpa
+
+        return _shared(pressures_hpa, [_number(v, where) for v in items], where)
     if kind == "times":
         items = _text_list(value, where)
         if not items:
@@ -306,10 +312,9 @@ def _convert(opt: _Option, value, where: str, base: Path | None):
         items = _text_list(value, where)
         if len(items) != 4:
             _fail(where, f"expected four numbers LAT0,LAT1,LON0,LON1 (degrees), found {value!r}")
-        box = [_number(v, where) for v in items]
-        if not (-90.0 <= box[0] < box[1] <= 90.0):
-            _fail(where, f"latitudes must satisfy -90 <= LAT0 < LAT1 <= 90; found {box[0]:g}, {box[1]:g}")
-        return box
+        from .jobs.choices import region_numbers
+
+        return _shared(region_numbers, [_number(v, where) for v in items], where)
     if kind == "choice":
         text = str(value).strip().lower() if isinstance(value, str) else value
         if text not in opt.choices:
@@ -460,22 +465,22 @@ def _need_files(opts: dict, command: str) -> list:
 
 
 def _run_demo(opts: dict, argv: list) -> int:
-    from . import workflow as W
+    from .jobs.demo import run_demo
 
     _use_agg()
-    report = W.run_demo(opts["output_dir"], overwrite=bool(opts["overwrite"]), progress=_progress_wanted(opts["quiet"]))
+    report = run_demo(opts["output_dir"], overwrite=bool(opts["overwrite"]), progress=_progress_wanted(opts["quiet"]))
     if not opts["quiet"]:
         print(report.text(caution=True), flush=True)
     return 0
 
 
 def _run_inspect(opts: dict, argv: list) -> int:
-    from . import workflow as W
+    from .jobs.describe import describe_inputs, expand_sources, open_inputs
 
-    paths = W.expand_sources(_need_files(opts, "inspect"))
-    ds = W.open_inputs(paths, names=opts.get("names"))
+    paths = expand_sources(_need_files(opts, "inspect"))
+    ds = open_inputs(paths, names=opts.get("names"))
     try:
-        print(W.describe_inputs(ds, paths).text(), flush=True)
+        print(describe_inputs(ds, paths).text(), flush=True)
     finally:
         ds.close()
     return 0
@@ -504,22 +509,24 @@ def _parameters(opts: dict, keys) -> dict:
 
 
 def _run_compute(opts: dict, argv: list) -> int:
-    from . import workflow as W
+    from .jobs._common import CAUTION_TEXT
+    from .jobs.compute import check_output_file, compute_to_netcdf
+    from .jobs.describe import expand_sources, open_inputs
 
     start = time.perf_counter()
     if not opts.get("output"):
         raise InputDataError("compute needs the output file: -o OUT.nc (or output = '...' in the config)")
-    paths = W.expand_sources(_need_files(opts, "compute"))
-    W.check_output_file(opts["output"], overwrite=bool(opts["overwrite"]), inputs=paths)
+    paths = expand_sources(_need_files(opts, "compute"))
+    check_output_file(opts["output"], overwrite=bool(opts["overwrite"]), inputs=paths)
     from .stream import client_from
 
-    ds = W.open_inputs(paths, names=opts.get("names"), on_bad_file="skip" if opts.get("skip_bad_files") else "raise")
+    ds = open_inputs(paths, names=opts.get("names"), on_bad_file="skip" if opts.get("skip_bad_files") else "raise")
     try:
         parameters = {"files": " ".join(paths), **_parameters(opts, (
             "output", "fields", "levels", "times", "region", "form", "smoothing", "coriolis", "f0_latitude",
             "omega", "dtype", "names"))}
         with client_from(opts.get("scheduler"), opts.get("workers")):
-            path, results = W.compute_to_netcdf(
+            path, results = compute_to_netcdf(
                 ds, opts["output"], overwrite=bool(opts["overwrite"]), dtype=opts["dtype"],
                 command=f"{_PROG} " + shlex.join(argv), parameters=parameters,
                 progress=_progress_wanted(opts["quiet"]) and not (opts.get("scheduler") or opts.get("workers")),
@@ -542,20 +549,22 @@ def _run_compute(opts: dict, argv: list) -> int:
         ]
         if results.attrs.get("qgforce_not_computed"):
             lines.append(f"  not computed: {results.attrs['qgforce_not_computed']}")
-        lines += [W.CAUTION_TEXT, f"wall time: {time.perf_counter() - start:.1f} s"]
+        lines += [CAUTION_TEXT, f"wall time: {time.perf_counter() - start:.1f} s"]
         print("\n".join(lines), flush=True)
     return 0
 
 
 def _run_maps(opts: dict, argv: list) -> int:
-    from . import workflow as W
+    from .jobs._common import CAUTION_TEXT
+    from .jobs.describe import expand_sources, open_inputs
+    from .jobs.maps import make_maps
 
     start = time.perf_counter()
     _use_agg()
-    paths = W.expand_sources(_need_files(opts, "maps"))
-    ds = W.open_inputs(paths, names=opts.get("names"))
+    paths = expand_sources(_need_files(opts, "maps"))
+    ds = open_inputs(paths, names=opts.get("names"))
     try:
-        written = W.make_maps(
+        written = make_maps(
             ds, opts["output_dir"], fields=opts.get("fields"), levels=opts.get("levels"), times=opts.get("times"),
             summary=bool(opts["summary"]), dpi=opts["dpi"], width_px=opts.get("width_px"),
             overwrite=bool(opts["overwrite"]), projection=opts["projection"], progress=_progress_wanted(opts["quiet"]),
@@ -565,7 +574,7 @@ def _run_maps(opts: dict, argv: list) -> int:
         ds.close()
     if not opts["quiet"]:
         shown = ", ".join(p.name for p in written[:4]) + (", ..." if len(written) > 4 else "")
-        print(f"wrote {len(written)} PNG file(s) to {opts['output_dir']}/: {shown}\n{W.CAUTION_TEXT}\n"
+        print(f"wrote {len(written)} PNG file(s) to {opts['output_dir']}/: {shown}\n{CAUTION_TEXT}\n"
               f"wall time: {time.perf_counter() - start:.1f} s", flush=True)
     return 0
 
@@ -591,8 +600,15 @@ _HANDLERS = {"demo": _run_demo, "inspect": _run_inspect, "compute": _run_compute
 
 
 def _error_line(exc: BaseException) -> str:
-    """One line for a user error, with the library's ``names=`` and ``on_bad_file=`` hints spelled as the options."""
+    """One line for a user error, in the command line's words.
+
+    An error's own :attr:`~qgforce.errors.QGForceError.hints` (library words -> option words) are
+    applied first.  The two patterns below cover the input reader's messages that do not carry
+    hints yet (``names=`` and ``on_bad_file=``).
+    """
     text = " ".join(str(exc).split()) or type(exc).__name__
+    for library_words, option_words in getattr(exc, "hints", {}).items():
+        text = text.replace(library_words, option_words)
     text = re.sub(r"pass names=\{'(\w+)': '[^']*'\}(?: to open_dataset)?", r"pass --names \1=<name in the file>", text)
     text = text.replace("pass on_bad_file='skip'", "pass --skip-bad-files (compute)")
     return text

@@ -9,7 +9,21 @@ from __future__ import annotations
 
 
 class QGForceError(Exception):
-    """Base class of every error qgforce raises for bad input or an impossible request."""
+    """Base class of every error qgforce raises for bad input or an impossible request.
+
+    Parameters
+    ----------
+    *args
+        The message (what was expected, what was found, how to fix it).
+    hints : mapping, optional
+        Library words of the message -> the words of another interface, e.g.
+        ``{"overwrite=True": "--overwrite"}``: the command line shows the message with them
+        replaced (:attr:`hints`), so the library keeps speaking Python.
+    """
+
+    def __init__(self, *args, hints=None):
+        super().__init__(*args)
+        self.hints = dict(hints or {})
 
 
 class MissingVariableError(QGForceError, KeyError):

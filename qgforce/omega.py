@@ -434,3 +434,166 @@ def lift_over_time(field: xr.DataArray, hours: float, temperature: xr.DataArray 
     else:
         raise InputDataError(f"lift_over_time needs omega in 'Pa s-1' or w in 'm s-1'; found units {units!r}")
     return out
+
+
+# ============================================================================ attribution of ω
+# Which forcing term drives the strongest ascent of an inversion (moved here from the jobs: it
+# reads the inversion's own outputs).  Imports of this part are kept with it.
+from dataclasses import dataclass  # noqa: E402
+
+from . import _timetext  # noqa: E402
+from . import variables as _variables  # noqa: E402
+
+__all__ += ["Ascent", "strongest_ascent", "form_partition"]  # noqa: F405
+
+@dataclass
+class Ascent:
+    """The strongest forced ascent of a result set and its attribution (see :func:`strongest_ascent`).
+
+    Attributes
+    ----------
+    time : object or None
+    level_pa, latitude, longitude : float
+    omega : float
+        ``omega_total`` there [Pa s-1] (negative: ascent).
+    w : float or None
+        ``w_total`` there [m s-1].
+    form : str
+        The form of ``omega_total``.
+    terms : list of (name, omega, share)
+        Additive terms of that form at the point, most negative first; share = omega_term / omega_total.
+    parts : list of (name, omega, share)
+        The sub-terms of the form (Q_n, Q_s in the Q-vector form), as shares of omega_total.
+    other_form : tuple or None
+        ``(form, omega_total, terms)`` of the second form at the point, when present.
+    """
+
+    time: object
+    level_pa: float
+    latitude: float
+    longitude: float
+    omega: float
+    w: float | None
+    form: str
+    terms: list
+    parts: list
+    other_form: tuple | None = None
+
+    def text(self) -> str:
+        """A few lines for the printed summary."""
+        lon = (self.longitude + 180.0) % 360.0 - 180.0
+        where = (f"{abs(self.latitude):.1f}°{'N' if self.latitude >= 0 else 'S'} "
+                 f"{abs(lon):.1f}°{'E' if lon >= 0 else 'W'}")
+        when = f"{_timetext.time_text(self.time)}, " if self.time is not None else ""
+        w = f" (w = {self.w * 100.0:+.1f} cm s-1)" if self.w is not None and np.isfinite(self.w) else ""
+        lines = [f"strongest forced ascent (700-400 hPa): omega_total = {self.omega:.3f} Pa s-1{w} "
+                 f"at {when}{self.level_pa / 100.0:g} hPa, {where}"]
+        if self.terms:
+            name, value, share = self.terms[0]
+            parts = ", ".join(f"{_variables.label(n)} {s:.0%}" for n, _, s in self.parts)
+            rest = ", ".join(f"{_variables.label(n)} {s:.0%}" for n, _, s in self.terms[1:])
+            lines.append(f"  dominant term ({_form_label(self.form)} form): {_variables.label(name)}, {value:.3f} Pa s-1 = "
+                         f"{share:.0%} of omega_total" + (f" (of which {parts})" if parts else "")
+                         + (f"; also {rest}" if rest else ""))
+        if self.other_form:
+            form, total, terms = self.other_form
+            lines.append(f"  {_form_label(form)} form there: omega_total = {total:.3f} Pa s-1, "
+                         + ", ".join(f"{_variables.label(n)} {s:.0%}" for n, _, s in terms))
+        return "\n".join(lines)
+
+
+def strongest_ascent(results: xr.Dataset, layer_hpa=(700.0, 400.0), field_name: str = "omega_total") -> Ascent:
+    """Where ``omega_total`` is most negative within a pressure layer, and which term forces it.
+
+    Parameters
+    ----------
+    results : xarray.Dataset
+        From :func:`build_results` with the omega outputs (computed or lazy).
+    layer_hpa : (float, float)
+        Pressures bounding the layer [hPa], inclusive.
+    field_name : str
+        The total ω to search.
+
+    Returns
+    -------
+    Ascent
+
+    Raises
+    ------
+    MissingVariableError
+        Without ``field_name`` in the results.
+    InputDataError
+        No level in the layer, or no finite value there.
+
+    Notes
+    -----
+    The terms are those listed in ``results[field_name].attrs["qgforce_terms"]`` (the additive
+    right-hand-side terms of the form, :func:`qgforce.omega.invert_omega`); since the operator
+    is linear their ω sum to ``omega_total``, so each share is ω_term / ω_total at the point.
+    """
+    if field_name not in results.data_vars:
+        raise MissingVariableError(f"strongest_ascent needs {field_name!r} in the results (run the inversion)")
+    total = results[field_name]
+    lo, hi = sorted(float(v) * 100.0 for v in layer_hpa)
+    layer = total.sel(level=total["level"][(total["level"] >= lo - 0.5) & (total["level"] <= hi + 0.5)])
+    if layer.sizes["level"] == 0:
+        raise InputDataError(f"no level of the results lies between {lo / 100:g} and {hi / 100:g} hPa")
+    values = np.asarray(layer.values)
+    if not np.isfinite(values).any():
+        raise InputDataError(f"{field_name} has no finite value between {lo / 100:g} and {hi / 100:g} hPa")
+    flat = int(np.nanargmin(values))
+    index = dict(zip(layer.dims, np.unravel_index(flat, values.shape)))
+    point = {d: layer[d].values[i] for d, i in index.items() if d in layer.coords}
+    at = {d: int(i) for d, i in index.items()}
+
+    def value(name):
+        return float(results[name].sel(level=point["level"]).isel({d: i for d, i in at.items() if d != "level"}).values)
+
+    lat = float(layer.isel(at)["latitude"].values)
+    lon = float(layer.isel(at)["longitude"].values)
+    om = float(values.flat[flat])
+    form = str(total.attrs.get("qgforce_form", results.attrs.get("qgforce_form", "")))
+
+    def attribution(form_name, total_name, total_value):
+        terms_attr = str(results[total_name].attrs.get("qgforce_terms", "")).split()
+        terms = [(t, value(f"omega_{t}")) for t in terms_attr if f"omega_{t}" in results.data_vars]
+        terms = sorted(((t, v, v / total_value) for t, v in terms), key=lambda x: x[1])
+        members = form_partition(results, form_name, terms_attr)
+        parts = sorted(((t, value(f"omega_{t}"), value(f"omega_{t}") / total_value) for t in members),
+                       key=lambda x: x[1])
+        return terms, parts
+
+    terms, parts = attribution(form, field_name, om)
+    w_name = field_name.replace("omega_total", "w_total", 1)
+    w = value(w_name) if w_name != field_name and w_name in results.data_vars else None
+    other = None
+    for other_form in _variables.FORMS_OF_OMEGA:
+        name = f"omega_total_{other_form}"
+        if other_form != form and name in results.data_vars:
+            t_other = value(name)
+            o_terms, _ = attribution(other_form, name, t_other)
+            other = (other_form, t_other, o_terms)
+    tdim = _timetext.time_dim(results)
+    return Ascent(time=point.get(tdim) if tdim else None, level_pa=float(point["level"]),
+                  latitude=lat, longitude=lon, omega=om, w=w, form=form, terms=terms, parts=parts, other_form=other)
+
+
+def _form_label(form: str) -> str:
+    return _variables.FORMS_OF_OMEGA.get(form, form)
+
+
+def form_partition(results, form: str, terms) -> list:
+    """The sub-terms of ``form`` inverted in ``results`` beyond its additive ``terms`` (Q_n, Q_s).
+
+    Each is a right-hand-side term whose ``omega_<term>`` is in the results with
+    ``qgforce_form == form`` (see :mod:`qgforce.variables`).
+    """
+    out = []
+    for n in results.data_vars:
+        row = _variables.find(n)
+        if row is None or row.group != "omega" or row.form_shared or results[n].attrs.get("qgforce_form") != form:
+            continue
+        term = str(n)[len("omega_"):]
+        if _variables.find(term) is not None and term not in terms:
+            out.append(term)
+    return out

@@ -48,6 +48,7 @@ import numpy as np
 
 from . import constants as C
 from . import sections
+from . import variables as _variables
 from ._unitstr import parse as _parse_units
 from .errors import GridError, InputDataError, MissingVariableError, QGForceError
 
@@ -768,7 +769,7 @@ def cross_section(field, start, end, ax=None, *, npoints=100, contours=None, con
 
 # ---------------------------------------------------------------------- summary
 def _is_motion(name: str) -> bool:
-    return name in ("omega", "w") or name.startswith(("omega_", "w_"))
+    return name in ("omega", "w") or _variables.is_motion(name)
 
 
 def _panel_level(name: str, level, omega_level) -> float:
@@ -868,10 +869,11 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
         ax = _map_axes(fig, (nrows, ncols, i + 1), lon, lat, projection)
         geop = _at_level(ds["geopotential"], p) if "geopotential" in ds.data_vars else None
         vec = None
-        if name == "q_vector_forcing" and "q_vector_x" in ds.data_vars and "q_vector_y" in ds.data_vars:
-            vec = (_at_level(ds["q_vector_x"], p), _at_level(ds["q_vector_y"], p))
+        pair = _variables.vector_pair(name)
+        if pair and all(q in ds.data_vars for q in pair):
+            vec = tuple(_at_level(ds[q], p) for q in pair)
         style = {"symmetric": None, "cmap": None, **PANEL_STYLES.get(name, {})}
-        title = PANEL_TITLES.get(name, name.replace("_", " "))
+        title = _variables.panel_title(name)
         if "level" in ds[name].dims:
             title += f" — {p / 100.0:g} hPa"
         art = _draw_map(ax, field, contours=geop, contour_interval=None, vectors=vec, vector_stride=None,
@@ -885,20 +887,9 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
     return fig
 
 
-#: Short panel titles of the summary figure (the colour bars carry the units).
-PANEL_TITLES = {
-    "temperature_advection": "temperature advection",
-    "differential_vorticity_advection": "differential vorticity advection",
-    "thermal_advection_term": "thermal advection term",
-    "q_vector_forcing": "Q-vector forcing −2∇·Q",
-    "qn_forcing": "Q_n forcing",
-    "qs_forcing": "Q_s forcing",
-    "frontogenesis": "frontogenesis",
-    "omega_total": "QG ω (all terms)",
-    "w_total": "QG w (all terms)",
-    "hours_to_saturation": "hours of QG ascent to saturation",
-    "hours_to_initiation": "hours of QG ascent to initiation potential",
-}
+#: Short panel titles of the summary figure (the colour bars carry the units), from
+#: :mod:`qgforce.variables` (kept as a mapping for code that reads it).
+PANEL_TITLES = {n: row.title for n, row in _variables.TABLE.items()}
 
 
 # ---------------------------------------------------------------------- output

@@ -304,20 +304,22 @@ def test_bad_option_values_are_one_line_errors(small, tmp_path, capsys):
 def test_interrupted_or_failed_write_leaves_nothing(small, tmp_path, capsys, monkeypatch):
     # to_netcdf(compute=False) has created the temporary file (header written) when the data are
     # computed: fail exactly then, as a full disk (OSError ENOSPC) or Ctrl-C would
-    real = W._compute
+    from qgforce import _progress  # the one place where a job hands work to dask
+
+    real = _progress.compute
     seen = []
 
     def fail_mid_write(obj, progress, desc):
         seen.extend(p.name for p in tmp_path.iterdir() if p.name.endswith(".tmp"))
         raise error
 
-    monkeypatch.setattr(W, "_compute", fail_mid_write)
+    monkeypatch.setattr(_progress, "compute", fail_mid_write)
     for error, code in ((OSError(28, "No space left on device"), 2), (KeyboardInterrupt(), 130)):
         assert main(["compute", str(small), "-o", str(tmp_path / "out.nc"), "--no-omega", "-q"]) == code
         assert len(capsys.readouterr().err.strip().splitlines()) == 1
         assert not list(tmp_path.iterdir()), list(tmp_path.iterdir())
     assert len(seen) == 2 and all(name.startswith(".out.nc.") for name in seen)  # the partial file did exist
-    monkeypatch.setattr(W, "_compute", real)
+    monkeypatch.setattr(_progress, "compute", real)
 
 
 # ---------------------------------------------------------------------------- config

@@ -1,0 +1,10 @@
+"""The jobs the command line runs, one small module each, as plain functions over the library.
+
+* :mod:`.choices`: option parsers shared by the command line and the jobs (forms, levels, times, region);
+* :mod:`.describe`: ``inspect`` (find and open the inputs, describe them and what they allow);
+* :mod:`.compute`: ``compute`` (the diagnostics of a job as one dataset, written to CF NetCDF);
+* :mod:`.maps`: ``maps`` (plan, then draw, the PNG maps);
+* :mod:`.demo`: ``demo`` (everything on the invented demo scenario).
+
+:mod:`qgforce.workflow` re-exports every name for code written against it.
+"""

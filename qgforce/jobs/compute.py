@@ -1,0 +1,467 @@
+"""The compute job: the diagnostics of a job as one dataset, and their CF NetCDF file.
+
+See :mod:`qgforce.workflow` for the result names and the column-lifting fields.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import warnings
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import xarray as xr
+
+from .. import variables as V
+from ..errors import InputDataError, MissingVariableError, OptionError, QGForceError
+from ..output import cf
+from ..output.atomic import atomic_path
+from ..output.netcdf import write_results
+from ._common import CAUTION_TEXT, _as_list, _hpa, _input_files, _reason
+from .choices import CORIOLIS, FORMS, check_choice, crop, levels_pa, region_box, select_times
+
+__all__ = ["LIFTING_FIELDS", "LIFTING_HORIZON_HOURS", "build_results", "check_output_file", "atomic_output",
+           "write_netcdf", "compute_to_netcdf", "NETCDF_COMPLEVEL"]
+
+LIFTING_FIELDS = V.LIFTING_FIELDS
+
+#: zlib level of the compute job's files (the streaming job writes level 1 for speed).
+NETCDF_COMPLEVEL = 4
+
+
+#: Horizon [h] of the column-lifting fields of :func:`build_results`.
+LIFTING_HORIZON_HOURS = 24.0
+
+
+def _lifting_inputs(ds: xr.Dataset) -> bool:
+    """True when ``ds`` has the humidity the column-lifting fields need; else a clear MissingVariableError."""
+    if "specific_humidity" not in ds:
+        raise MissingVariableError(
+            "the column-lifting fields (" + ", ".join(LIFTING_FIELDS) + ") need specific humidity, which the input "
+            "lacks; the other fields do not need it")
+    return True
+
+
+def _lifting_fields(ds: xr.Dataset, columns: dict, form: str, omega: bool) -> xr.Dataset:
+    """The :data:`LIFTING_FIELDS` from ``columns[form]``, the whole-column ``omega_total`` of ``form``
+    (see the module docstring)."""
+    from ..ascent import hours_to_initiation
+
+    if not omega:
+        raise InputDataError("the column-lifting fields (" + ", ".join(LIFTING_FIELDS) + ") lift the columns by the "
+                             "inverted omega, but the inversion is switched off (--no-omega, omega=False)")
+    _lifting_inputs(ds)
+    if form not in columns:
+        raise MissingVariableError(f"the column-lifting fields need omega_total of the {form} form, which could not "
+                                   "be computed")
+    om = columns[form]
+    temperature, humidity, om = xr.align(ds["temperature"], ds["specific_humidity"], om, join="inner",
+                                         exclude=["level"])
+    hrs = hours_to_initiation(temperature, humidity, om, horizon_hours=LIFTING_HORIZON_HOURS, parcel="most_unstable")
+    out = hrs[list(LIFTING_FIELDS)]
+    for name in out.data_vars:
+        out[name].attrs.update(qgforce_omega=f"omega_total ({form} form), held constant from each time",
+                               qgforce_lifting_horizon_hours=LIFTING_HORIZON_HOURS)
+    return out
+
+
+def _suffixed(om: xr.Dataset, form: str, primary: bool) -> xr.Dataset:
+    """Outputs of one form under their result names (see the module docstring)."""
+    if primary:
+        return om
+    keep = {n: (f"{n}_{form}" if V.form_shared(n) else n) for n in om.data_vars if not V.form_independent(n)}
+    return om[list(keep)].rename({k: v for k, v in keep.items() if k != v})
+
+
+def build_results(
+    ds: xr.Dataset,
+    *,
+    fields="all",
+    optional_fields: Sequence[str] = (),
+    levels=None,
+    times=None,
+    region=None,
+    form: str = "qvector",
+    omega: bool = True,
+    smoothing=None,
+    coriolis: str = "f0",
+    f0_latitude: float | None = None,
+) -> xr.Dataset:
+    """The diagnostics of a job as one dataset (lazy on dask input), every choice checked first.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A normalised dataset (:func:`open_inputs`).
+    fields : "all" or sequence of str
+        Result names to keep (comma-separated string accepted).  ``"all"``: every forcing term
+        of :func:`qgforce.forcing.forcing_terms` and every output of
+        :func:`qgforce.omega.invert_omega` for ``form``, as far as the input variables allow (what
+        cannot be computed is listed in ``attrs["qgforce_not_computed"]``).  Names of either omega
+        form may be asked for whatever ``form`` is (see the module docstring for the names).
+    optional_fields : sequence of str
+        Names added when they can be computed and silently left out otherwise (for decorations
+        such as geopotential contours on maps).
+    levels : sequence of float or str, optional
+        Output pressures in hPa (values of 2000 or more are read as Pa); each must be a level of the
+        data.  Vertical derivatives and the inversion always use the whole column.
+    times : optional
+        See :func:`select_times`.
+    region : (lat0, lat1, lon0, lon1), optional
+        Degrees.  The forcing terms are computed on the whole grid and cut to the region; ω is
+        inverted on the region (ω = 0 on its edges: the region is the inversion domain).  With
+        ``coriolis="f0"`` and no ``f0_latitude``, the reference latitude is the area-weighted
+        mean latitude of the region, for the forcing and the inversion alike.
+    form : {"qvector", "traditional", "both"}
+        Omega form whose outputs keep the plain names (``omega_total``, ...); ``"both"``: the
+        Q-vector form, plus the traditional one with suffixed names.
+    omega : bool
+        Invert the omega equation (False: forcing terms only).
+    smoothing, coriolis, f0_latitude
+        Passed to the library (see :func:`qgforce.forcing.forcing_terms`).
+
+    Returns
+    -------
+    xarray.Dataset
+        The chosen fields with the library's attributes; the omega outputs carry
+        ``qgforce_form``.  Global attrs record the choices (``qgforce_fields``,
+        ``qgforce_levels``, ``qgforce_region``, ``qgforce_form``, ``qgforce_smoothing``,
+        ``qgforce_coriolis``, ``qgforce_not_computed``) and the input's ``title``, ``source``,
+        ``history`` as ``qgforce_input_*``.
+
+    Raises
+    ------
+    InputDataError
+        An unknown field name (the message lists the available ones), a level not in the data, a
+        region outside the data, a bad option value.
+    MissingVariableError
+        When a requested field (or, for ``"all"``, every field) needs a variable the input lacks.
+    QGForceError
+        Any other refusal of the library (grid, units, smoothing specification).
+    """
+    check_choice("form", form, FORMS)
+    check_choice("coriolis", coriolis, CORIOLIS)
+    wanted = _as_list(fields)
+    every = not wanted or wanted == ["all"]
+    if "all" in wanted and not every:
+        raise OptionError("fields: 'all' cannot be combined with other names")
+    plan = _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitude)
+    groups = _Groups(plan)
+    groups.build("forcing")
+    if omega:
+        for f in plan.primary_forms:
+            groups.build(f)
+    lifting = set(V.LIFTING_FIELDS)
+    if (every and omega) or lifting & set(wanted) \
+            or (lifting & set(optional_fields) and "specific_humidity" in plan.ds and omega):
+        groups.build("lifting")
+    chosen = _every_field(groups) if every else _wanted_fields(groups, wanted)
+    have = groups.available()
+    chosen += [n for n in optional_fields if n in have and n not in chosen]
+    results = xr.merge([groups.done[have[n]][[n]] for n in chosen], join="outer", compat="override",
+                       combine_attrs="override")[chosen]
+    for name in results.coords:  # the library's outputs may lose the coordinates' CF attributes
+        if name in plan.ds.coords:
+            results[name].attrs = {**plan.ds[name].attrs, **results[name].attrs}
+    results.attrs = _result_attrs(plan, groups, chosen, region, smoothing)
+    return results
+
+
+@dataclass
+class _Plan:
+    """The checked choices of one :func:`build_results` call."""
+
+    ds: xr.Dataset
+    levels_pa: object
+    box: dict | None
+    common: dict
+    domain: object
+    form: str
+    omega: bool
+    coriolis: str
+    primary_forms: list
+    other_forms: list
+
+
+def _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitude) -> _Plan:
+    """Select the times, check levels and region, and fix the reference latitude of a region."""
+    from ..grid import Grid
+    from ..kinematics import resolve_coriolis
+
+    ds = select_times(ds, times)
+    chosen_levels = levels_pa(ds, levels)
+    box = region_box(ds, region)
+    if box is not None and coriolis == "f0" and f0_latitude is None:
+        f0_latitude = resolve_coriolis(Grid.from_dataset(crop(ds, box)), "f0", None, warn=False).reference_latitude
+    domain = None
+    if box is not None:
+        domain = (*box["latitude"], *box["longitude"]) if "latitude" in box else dict(box)
+    primary = ["qvector", "traditional"] if form == "both" else [form]
+    return _Plan(ds=ds, levels_pa=chosen_levels, box=box,
+                 common=dict(coriolis=coriolis, f0_latitude=f0_latitude, smoothing=smoothing), domain=domain,
+                 form=form, omega=omega, coriolis=coriolis, primary_forms=primary,
+                 other_forms=[f for f in ("qvector", "traditional") if f not in primary])
+
+
+class _Groups:
+    """The groups of results (``forcing``, each omega form, ``lifting``) built on demand, and why some failed."""
+
+    def __init__(self, plan: _Plan):
+        self.plan = plan
+        self.done: dict[str, xr.Dataset] = {}
+        self.failures: dict[str, QGForceError] = {}
+        self.columns: dict[str, xr.DataArray] = {}
+        self.without_wind: list = []
+
+    def build(self, group: str) -> None:
+        if group in self.done or group in self.failures:
+            return
+        try:
+            if group == "forcing":
+                out = self._forcing()
+            elif group == "lifting":
+                out = _lifting_fields(self.plan.ds, self.columns, self.plan.primary_forms[0], self.plan.omega)
+            else:
+                out = self._omega(group)
+            self.done[group] = out
+        except MissingVariableError as exc:
+            self.failures[group] = exc
+
+    def _forcing(self) -> xr.Dataset:
+        from .. import forcing as F
+
+        ds = self.plan.ds
+        wind = "full" if {"u", "v"} <= set(ds.data_vars) else "geostrophic"
+        out = crop(F.forcing_terms(ds, frontogenesis_wind=wind, levels=self.plan.levels_pa, **self.plan.common),
+                   self.plan.box)
+        if wind == "geostrophic":  # frontogenesis is by the full wind: leave out what needs u and v
+            self.without_wind.extend(n for n in out.data_vars
+                                     if V.find(n) is not None and {"u", "v"} <= set(V.find(n).needs))
+            out = out.drop_vars(self.without_wind)
+            self.failures["frontogenesis"] = MissingVariableError(
+                "frontogenesis by the full wind needs u and v, which the input lacks")
+        return out
+
+    def _omega(self, form: str) -> xr.Dataset:
+        from .. import omega as O
+
+        om = O.invert_omega(self.plan.ds, form=form, domain=self.plan.domain, **self.plan.common)
+        self.columns[form] = om["omega_total"]  # every level: the lifting fields need the whole column
+        if self.plan.levels_pa is not None:
+            om = om.sel(level=self.plan.levels_pa)
+        for name in om.data_vars:
+            om[name].attrs["qgforce_form"] = form
+        return _suffixed(om, form, primary=form == self.plan.primary_forms[0])
+
+    def available(self) -> dict:
+        """Result name -> the group that holds it (the first group wins)."""
+        names = {}
+        for g, d in self.done.items():
+            for n in d.data_vars:
+                names.setdefault(str(n), g)
+        return names
+
+
+def _every_field(groups: _Groups) -> list:
+    chosen = list(groups.available())
+    if not chosen:
+        raise next(iter(groups.failures.values()))
+    return chosen
+
+
+def _wanted_fields(groups: _Groups, wanted: list) -> list:
+    """The requested names, building the other omega form when needed; a clear error for what is missing."""
+    plan = groups.plan
+    have = groups.available()
+    missing = [n for n in wanted if n not in have]
+    if missing and plan.omega:
+        for f in plan.other_forms:
+            groups.build(f)
+        have = groups.available()
+        missing = [n for n in wanted if n not in have]
+    for name in missing:  # say why a known kind of field is not there
+        _explain_missing(groups, name)
+    if missing:
+        raise InputDataError(f"unknown field(s) {', '.join(missing)}; the fields are: {', '.join(sorted(have))}")
+    return list(dict.fromkeys(wanted))
+
+
+def _explain_missing(groups: _Groups, name: str) -> None:
+    failures = groups.failures
+    row = V.find(name)
+    if name in groups.without_wind:
+        raise failures["frontogenesis"]
+    if row is not None and row.group == "lifting" and "lifting" in failures:
+        raise failures["lifting"]
+    if row is not None and row.group in ("omega", "solver"):
+        if not groups.plan.omega:
+            raise InputDataError(f"field {name!r} is an omega output but the inversion is switched off "
+                                 "(--no-omega, omega=False)")
+        for f in ("qvector", "traditional"):
+            if f in failures:
+                raise failures[f]
+    elif "forcing" in failures:
+        raise failures["forcing"]
+
+
+def _result_attrs(plan: _Plan, groups: _Groups, chosen: list, region, smoothing) -> dict:
+    """The global attributes recording the job's choices (see :func:`build_results`)."""
+    ds = plan.ds
+    forcing_attrs = groups.done.get("forcing", xr.Dataset()).attrs
+    omega_attrs = next((groups.done[f].attrs for f in ("qvector", "traditional") if f in groups.done), {})
+    attrs = {
+        "qgforce_fields": " ".join(chosen),
+        "qgforce_levels": " ".join(_hpa(p) for p in (ds["level"].values if plan.levels_pa is None
+                                                     else plan.levels_pa)) + " hPa",
+        "qgforce_region": "whole grid" if region is None else ",".join(f"{float(v):g}" for v in _as_list(region)),
+        "qgforce_form": plan.form if plan.omega else "none (no inversion)",
+        "qgforce_smoothing": str(forcing_attrs.get("qgforce_smoothing",
+                                                   omega_attrs.get("qgforce_smoothing", smoothing or "none"))),
+        "qgforce_coriolis": str(forcing_attrs.get("qgforce_coriolis",
+                                                  omega_attrs.get("qgforce_coriolis", plan.coriolis))),
+    }
+    for key in ("qgforce_equator_mask_degrees", "qgforce_temperature_wind", "qgforce_frontogenesis_wind"):
+        if key in forcing_attrs:
+            attrs[key] = forcing_attrs[key]
+    for key in ("qgforce_sigma", "qgforce_boundary", "qgforce_fill", "qgforce_solver_request",
+                "qgforce_solver_tolerance"):
+        if key in omega_attrs and plan.omega:
+            attrs[key] = omega_attrs[key]
+    if groups.failures:
+        attrs["qgforce_not_computed"] = "; ".join(f"{g}: {_reason(e)}" for g, e in groups.failures.items())
+    for key in ("title", "source", "history", "institution"):
+        if key in ds.attrs:
+            attrs[f"qgforce_input_{key}"] = str(ds.attrs[key])
+    if "qgforce_input_files" in ds.attrs:
+        attrs["qgforce_input_files"] = ds.attrs["qgforce_input_files"]
+    return attrs
+
+
+def check_output_file(path, *, overwrite: bool = False, inputs: Sequence[str] = ()) -> Path:
+    """Check that a result file may be written at ``path``; nothing is created.
+
+    Raises
+    ------
+    InputDataError
+        The directory does not exist, the path is a directory, the file exists and
+        ``overwrite`` is False, or it is one of the ``inputs``.
+    """
+    path = Path(os.path.expanduser(os.fspath(path)))
+    parent = path.parent if str(path.parent) else Path(".")
+    if not parent.is_dir():
+        raise InputDataError(f"the output directory {str(parent)!r} does not exist; create it first")
+    if path.is_dir():
+        raise InputDataError(f"the output {str(path)!r} is a directory; give a file name such as {path}/results.nc")
+    for src in inputs:
+        with contextlib.suppress(OSError):
+            if path.exists() and os.path.samefile(src, path):
+                raise InputDataError(f"the output {str(path)!r} is one of the input files; choose another name")
+    if path.exists() and not overwrite:
+        raise InputDataError(f"{str(path)!r} exists; pass --overwrite (overwrite=True) to replace it")
+    return path
+
+
+@contextlib.contextmanager
+def atomic_output(path):
+    """Deprecated: use :func:`qgforce.output.atomic.atomic_path` (``overwrite=True`` keeps this behaviour).
+
+    A temporary path beside ``path``, moved onto it (replacing it) on success, removed on failure.
+    """
+    warnings.warn("qgforce.workflow.atomic_output is deprecated; use qgforce.output.atomic_path(path, "
+                  "overwrite=True)", DeprecationWarning, stacklevel=3)
+    with atomic_path(path, overwrite=True) as tmp:
+        yield tmp
+
+
+def write_netcdf(
+    results: xr.Dataset,
+    path,
+    *,
+    overwrite: bool = False,
+    dtype: str = "float32",
+    title: str | None = None,
+    command: str | None = None,
+    parameters: Mapping | None = None,
+    progress: bool = False,
+) -> Path:
+    """Write results to one CF-1.8 NetCDF-4 file, atomically.
+
+    Parameters
+    ----------
+    results : xarray.Dataset
+        From :func:`build_results` (lazy or in memory).  Computed while being written, one
+        chunk at a time on dask input.
+    path : str or os.PathLike
+    overwrite : bool
+        Replace an existing file (never an input file).
+    dtype : {"float32", "float64"}
+        Stored type of the floating-point data variables (computation is always float64).
+    title : str, optional
+        Global ``title``; default from the input's title.
+    command : str, optional
+        How the job was started (the command line), quoted in ``history``.
+    parameters : mapping, optional
+        The job's full parameters, written in ``history`` as ``key=value`` pairs; default the
+        choices recorded in ``results.attrs``.
+    progress : bool
+        A progress bar (tasks) on standard error.
+
+    Returns
+    -------
+    pathlib.Path
+
+    Raises
+    ------
+    InputDataError
+        See :func:`check_output_file`; a bad ``dtype``.
+
+    Notes
+    -----
+    Global attributes (CF 2.6.2): ``Conventions = "CF-1.8"``, ``title``, ``history`` (a new
+    first line ``<UTC time> qgforce <version>: <command> (<parameters>)`` above the input's
+    history), ``source`` (qgforce and the input files), ``references``, ``comment`` (the
+    caution), and the ``qgforce_*`` choices.  Written by the one NetCDF writer
+    (:func:`qgforce.output.netcdf.write_results`) with its encoding policy at zlib level
+    :data:`NETCDF_COMPLEVEL`; the final move never replaces a file another process wrote meanwhile
+    (:class:`~qgforce.output.atomic.ConcurrentWriteError`) unless ``overwrite``.
+    """
+    inputs = _input_files(results)
+    path = check_output_file(path, overwrite=overwrite, inputs=inputs)
+    check_choice("dtype", dtype, cf.OUTPUT_DTYPES)
+    attrs = dict(results.attrs)
+    previous = attrs.pop("qgforce_input_history", None)
+    input_title = attrs.pop("qgforce_input_title", None)
+    input_source = attrs.pop("qgforce_input_source", None)
+    attrs.pop("qgforce_input_institution", None)
+    if parameters is None:
+        parameters = {k[len("qgforce_"):]: v for k, v in attrs.items()
+                      if k in ("qgforce_fields", "qgforce_levels", "qgforce_region", "qgforce_form",
+                               "qgforce_smoothing", "qgforce_coriolis")}
+    out = results.copy(deep=False)
+    out.attrs = {**cf.global_attrs(
+        title=title or ("QG forcing diagnostics and omega" + (f" of: {input_title}" if input_title else "")),
+        sources=inputs, command=command or "qgforce.workflow.write_netcdf", parameters=parameters,
+        previous_history=previous, input_source=input_source, comment=CAUTION_TEXT), **attrs}
+    return write_results(out, path, dtype=dtype, complevel=NETCDF_COMPLEVEL, overwrite=overwrite, progress=progress)
+
+
+def compute_to_netcdf(ds: xr.Dataset, path, *, overwrite: bool = False, dtype: str = "float32",
+                      command: str | None = None, parameters: Mapping | None = None, progress: bool = False,
+                      **options) -> tuple[Path, xr.Dataset]:
+    """Build the results of a job (:func:`build_results` with ``options``) and write them.
+
+    The output path is checked before anything is computed.
+
+    Returns
+    -------
+    (pathlib.Path, xarray.Dataset)
+        The file written and the (lazy) results that were written.
+    """
+    inputs = _input_files(ds)
+    check_output_file(path, overwrite=overwrite, inputs=inputs)
+    check_choice("dtype", dtype, cf.OUTPUT_DTYPES)
+    results = build_results(ds, **options)
+    return write_netcdf(results, path, overwrite=overwrite, dtype=dtype, command=command, parameters=parameters,
+                        progress=progress), results
