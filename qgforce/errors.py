@@ -64,6 +64,11 @@ class DataQualityWarning(QGForceWarning):
     """Input values were altered (clipped, floored, filled) to make a computation possible."""
 
 
+class OmittedTermWarning(QGForceWarning):
+    """Some diagnostics could not be computed from the data given (too few levels, a missing
+    variable) and were left out of the result; the message and an attribute list them and why."""
+
+
 __all__ = [
     "QGForceError",
     "MissingVariableError",
@@ -75,4 +80,5 @@ __all__ = [
     "QGForceWarning",
     "EquatorialMaskWarning",
     "DataQualityWarning",
+    "OmittedTermWarning",
 ]

@@ -34,7 +34,7 @@ import xarray as xr
 from . import constants as C
 from .errors import EquatorialMaskWarning, GridError, InputDataError, MissingVariableError
 from .grid import Grid
-from .kinematics import resolve_coriolis
+from .kinematics import DEFAULT_CORIOLIS_RULE, default_coriolis, default_f0_latitude, resolve_coriolis
 from .solver import QGOperator, floor_sigma, solve
 from .thermo import mean_static_stability, omega_to_w, static_stability
 
@@ -175,7 +175,7 @@ def invert_omega(
     rhs: xr.Dataset | None = None,
     sigma: str = "mean",
     sigma_floor: float = DEFAULT_SIGMA_FLOOR,
-    coriolis: str = "f0",
+    coriolis: str | None = None,
     f0_latitude: float | None = None,
     smoothing=None,
     domain=None,
@@ -207,11 +207,14 @@ def invert_omega(
         (Krylov solver; the count of floored points is reported in attrs).
     sigma_floor : float
         Minimum local σ [m2 Pa-2 s-2].
-    coriolis : {"f0", "local"}
+    coriolis : {None, "f0", "local"}
         f in the operator and in the forcing: one reference value (textbook) or f(φ).
+        ``None`` (default): the rule of :func:`qgforce.kinematics.default_coriolis` applied to
+        the inversion domain (f0 on one hemisphere spanning at most 60° of latitude, local f
+        otherwise), recorded in the ``qgforce_coriolis_rule`` attribute.
     f0_latitude : float, optional
-        Reference latitude; default the area-weighted mean latitude of the inversion domain
-        (used for the forcing terms and the operator alike).
+        Reference latitude; default the cos φ-weighted mean latitude of the inversion domain
+        (44.1° on the demo domain; used for the forcing terms and the operator alike).
     smoothing : optional
         Smoothing of the inputs of the forcing terms (see :func:`qgforce.smoothing.smooth`).
     domain : optional
@@ -260,12 +263,16 @@ def invert_omega(
         )
     from .forcing import omega_rhs
 
-    if f0_latitude is None:
-        # one reference latitude for the forcing and the operator: the domain's area-weighted mean
+    rule = "requested"
+    if f0_latitude is None or coriolis is None:
+        # one Coriolis choice and reference latitude for the forcing and the operator, from the domain
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", EquatorialMaskWarning)
             dom_grid = Grid.from_dataset(select_domain(ds[["temperature"]], domain, equator_mask))
-        f0_latitude = float((dom_grid.area_mean_weights() * dom_grid.latitude).sum())
+        if coriolis is None:
+            coriolis, rule = default_coriolis(dom_grid), DEFAULT_CORIOLIS_RULE
+        if f0_latitude is None:
+            f0_latitude = default_f0_latitude(dom_grid)
     if rhs is None:
         rhs = omega_rhs(ds, form=form, coriolis=coriolis, f0_latitude=f0_latitude, smoothing=smoothing, equator_mask=equator_mask)
     sub = select_domain(xr.merge([ds, rhs], compat="override", join="inner"), domain, equator_mask)
@@ -346,6 +353,7 @@ def invert_omega(
     choice = {
         "qgforce_form": form,
         "qgforce_coriolis": cor.description,
+        "qgforce_coriolis_rule": rule,
         "qgforce_smoothing": rhs.attrs.get("qgforce_smoothing", "none"),
         "qgforce_boundary": battrs,
         "qgforce_fill": fill or "refuse NaN",
