@@ -58,7 +58,7 @@ import xarray as xr
 from . import constants as C
 from .calculus import LEVEL, ddp, divergence, gradient, laplacian
 from .errors import (EquatorialMaskWarning, GridError, MissingVariableError, OmittedTermWarning, OptionError,
-                     QGForceError, UnitsError)
+                     PoleRowWarning, QGForceError, UnitsError)
 from .grid import Grid
 from .kinematics import (
     geostrophic_vorticity,
@@ -691,8 +691,21 @@ def _build_frontogenesis(ctx: _Context, wind: str) -> dict:
             for name, (da, units, long_name) in labels.items()}
 
 
-def _dataset(parts: dict, attrs: dict) -> xr.Dataset:
+def _dataset(parts: dict, attrs: dict, grid: Grid | None = None) -> xr.Dataset:
+    """The result dataset; with ``grid``, pole rows are masked (NaN) with a :class:`PoleRowWarning`.
+
+    At a pole the zonal metric vanishes and the nested operators there rest on rows extrapolated
+    from their neighbours: on a global 3° reanalysis −2∇·Q at a pole point came out ten times the
+    mid-latitude maxima.  The rows are the inversion's boundary, so ω never reads them.
+    """
     out = xr.Dataset(parts)
+    if grid is not None and grid.pole_rows:
+        keep = xr.DataArray(~np.isin(np.arange(grid.shape[0]), grid.pole_rows), dims=(grid.ydim,))
+        out = out.map(lambda da: da.where(keep) if grid.ydim in da.dims and da.dtype.kind == "f" else da,
+                      keep_attrs=True)
+        warnings.warn(f"{len(grid.pole_rows)} pole row(s) of the grid are masked (NaN) in the forcing terms: the "
+                      f"derivatives there are not defined on the sphere's grid", PoleRowWarning, stacklevel=3)
+        attrs = {**attrs, "qgforce_pole_rows": "masked (NaN)"}
     out.attrs = attrs
     return out
 
@@ -1015,7 +1028,7 @@ def q_vectors(ds, *, coriolis=None, f0_latitude=None, equator_mask=C.DEFAULT_EQU
     """
     ctx = _prepare(ds, what="Q-vectors", needs=("temperature", "geopotential"), why=_Q_WHY, coriolis=coriolis,
                    f0_latitude=f0_latitude, equator_mask=equator_mask, smoothing=smoothing, levels=levels, grid=grid)
-    return _dataset(ctx.evaluate(_build_q_vectors), ctx.attrs())
+    return _dataset(ctx.evaluate(_build_q_vectors), ctx.attrs(), ctx.grid)
 
 
 @_doc
@@ -1089,7 +1102,7 @@ def frontogenesis(ds, wind="full", *, coriolis=None, f0_latitude=None, equator_m
     ctx = _prepare(ds, what="frontogenesis", needs=needs, why="the potential temperature gradient and the wind",
                    geostrophic=wind == "geostrophic", coriolis=coriolis, f0_latitude=f0_latitude,
                    equator_mask=equator_mask, smoothing=smoothing, levels=levels, grid=grid)
-    return _dataset(ctx.evaluate(lambda c: _build_frontogenesis(c, wind)), ctx.attrs(wind))
+    return _dataset(ctx.evaluate(lambda c: _build_frontogenesis(c, wind)), ctx.attrs(wind), ctx.grid)
 
 
 def to_display_units(F: xr.DataArray) -> xr.DataArray:
@@ -1175,7 +1188,7 @@ def _rhs(ctx: _Context, form: str) -> xr.Dataset:
     attrs = {**ctx.attrs(), "qgforce_prefactor": ctx.prefactor_text}
     parts["rhs_total"] = _finish(total, parts[terms[0]], "rhs_total", attrs, units="Pa-1 s-3",
                                  long_name=f"right-hand side of the QG omega equation ({form} form)")
-    return _dataset(parts, {"qgforce_form": form, "qgforce_terms": " ".join(terms), **extra, **attrs})
+    return _dataset(parts, {"qgforce_form": form, "qgforce_terms": " ".join(terms), **extra, **attrs}, ctx.grid)
 
 
 @_doc
@@ -1279,4 +1292,5 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
         warnings.warn(f"the forcing terms: left out {omitted_text}. The other terms are computed.",
                       OmittedTermWarning, stacklevel=2)
     return _dataset(parts, {**ctx.attrs(), "qgforce_temperature_wind": temperature_wind,
-                            "qgforce_frontogenesis_wind": frontogenesis_wind, "qgforce_omitted": omitted_text})
+                            "qgforce_frontogenesis_wind": frontogenesis_wind, "qgforce_omitted": omitted_text},
+                    ctx.grid)

@@ -137,6 +137,57 @@ def select_domain(ds: xr.Dataset, domain=None, equator_mask: float | None = C.DE
     return out
 
 
+# ---------------------------------------------------------------------------- both hemispheres
+def _hemisphere_domains(ds: xr.Dataset, band: float) -> list:
+    """The (lat_min, lat_max) of each hemisphere's extratropical band, when the grid has both.
+
+    Each band starts ``_BAND_MARGIN`` rows poleward of the equatorial mask (the forcing's stencils
+    read that far into the masked band).  Empty when the grid is not lat–lon with ascending
+    latitude, has no mask, or has fewer than 3 usable rows on either side.
+    """
+    if "latitude" not in ds.dims or band <= 0:
+        return []
+    lat = np.asarray(ds["latitude"].values, dtype=np.float64)
+    if lat.size < 2 or not np.all(np.diff(lat) > 0):
+        return []
+    north, south = lat[lat >= band], lat[lat <= -band]
+    if north.size < 3 + _BAND_MARGIN or south.size < 3 + _BAND_MARGIN:
+        return []
+    return [(float(south[0]), float(south[-1 - _BAND_MARGIN])), (float(north[_BAND_MARGIN]), float(north[-1]))]
+
+
+def _join_hemispheres(parts: list, ds: xr.Dataset) -> xr.Dataset:
+    """One dataset on the whole latitude axis of ``ds`` from per-hemisphere inversions (NaN between).
+
+    Fields on the latitude axis are placed on their rows; per-step solver statistics take the worse
+    hemisphere (largest residual and iteration count, summed floored points); a static stability
+    without a latitude dimension (the level mean of each hemisphere) is spread over its rows.
+    """
+    lat = ds["latitude"]
+    joined = {}
+    for name in parts[0].data_vars:
+        pieces = [p[name] for p in parts]
+        if "latitude" not in pieces[0].dims and name == "static_stability":
+            pieces = [pc.broadcast_like(p["omega_total"].isel({d: 0 for d in p["omega_total"].dims
+                                                              if d not in ("latitude", *pc.dims)}, drop=True))
+                      for pc, p in zip(pieces, parts)]
+        if "latitude" in pieces[0].dims:
+            joined[name] = xr.concat(pieces, dim="latitude", coords="minimal", compat="override",
+                                     combine_attrs="override").reindex(latitude=lat)
+        elif name == "sigma_floored_points":
+            joined[name] = sum(pieces[1:], pieces[0]).assign_attrs(pieces[0].attrs)
+        else:
+            joined[name] = xr.concat(pieces, dim="qgforce_hemisphere").max("qgforce_hemisphere").assign_attrs(pieces[0].attrs)
+    out = xr.Dataset(joined)
+    out.attrs = dict(parts[0].attrs)
+    out.attrs["qgforce_coriolis"] = "per hemisphere: " + "; ".join(
+        f"{side} {p.attrs['qgforce_coriolis']}" for side, p in zip(("south", "north"), parts))
+    out.attrs["qgforce_hemispheres"] = (
+        "solved separately on each hemisphere's extratropical band with its own f0 and joined; "
+        "NaN in the equatorial band")
+    return out
+
+
 # ---------------------------------------------------------------------------- one step
 def _solve_step(rhs, sigma, boundary, *, op_kwargs, fsq, nterms, method, tol, maxiter, workers, fill, levels_hpa):
     """Solve every term of one step.  rhs: (nterms, nz, ny, nx); sigma: (nz,) or (nz, ny, nx)."""
@@ -218,7 +269,12 @@ def invert_omega(
     smoothing : optional
         Smoothing of the inputs of the forcing terms (see :func:`qgforce.smoothing.smooth`).
     domain : optional
-        See :func:`select_domain`.
+        See :func:`select_domain`.  With ``None`` on a lat–lon grid reaching into both
+        hemispheres (and ``coriolis`` not ``"local"``, ``rhs`` not given), ω is solved on each
+        hemisphere's extratropical band separately (poleward of the equatorial mask and its
+        two-row margin), each with its own f0 (default: the cos φ-weighted mean latitude of that
+        band, so of the right sign), and joined: NaN in the equatorial band, attrs
+        ``qgforce_hemispheres`` and a per-hemisphere ``qgforce_coriolis``.
     boundary : None, "model" or xarray.DataArray
         ω on the domain edges (top, bottom, lateral): 0 by default; ``"model"`` takes
         ``ds["omega"]``; or a DataArray on the grid.  Its contribution is ``omega_boundary``.
@@ -262,6 +318,27 @@ def invert_omega(
             "the omega inversion needs temperature (for the static stability σ); pass names={'temperature': ...} to open_dataset"
         )
     from .forcing import omega_rhs
+
+    hemispheres = _hemisphere_domains(ds, float(equator_mask or 0.0)) if (
+        domain is None and rhs is None and coriolis != "local") else []
+    if hemispheres:
+        # a grid reaching into both hemispheres: one f0 of the right sign each (an f0 latitude of the
+        # wrong sign for one of them is an OptionError from resolve_coriolis)
+        options = dict(form=form, sigma=sigma, sigma_floor=sigma_floor, coriolis=coriolis or "f0", f0_latitude=f0_latitude,
+                       smoothing=smoothing, boundary=boundary, fill=fill, method=method, tol=tol, maxiter=maxiter,
+                       workers=workers, equator_mask=equator_mask)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", EquatorialMaskWarning)
+            parts = [invert_omega(ds, domain=d, **options) for d in hemispheres]
+        warnings.warn(
+            f"the grid reaches into both hemispheres: ω is solved on latitudes {hemispheres[0][0]:g}..{hemispheres[0][1]:g} "
+            f"and {hemispheres[1][0]:g}..{hemispheres[1][1]:g} separately, each with its own f0, and is NaN in "
+            f"between (pass domain=... for one region)", EquatorialMaskWarning, stacklevel=2)
+        out = _join_hemispheres(parts, ds)
+        if coriolis is None:
+            out.attrs["qgforce_coriolis_rule"] = ("coriolis=None on a grid reaching into both hemispheres: f0 per "
+                                                  "hemisphere at the cos(latitude)-weighted mean latitude of its band")
+        return out
 
     rule = "requested"
     if f0_latitude is None or coriolis is None:
