@@ -32,7 +32,7 @@ import numpy as np
 import xarray as xr
 
 from . import constants as C
-from .errors import EquatorialMaskWarning, GridError, InputDataError, MissingVariableError
+from .errors import EquatorialMaskWarning, GridError, InputDataError, MissingVariableError, OptionError
 from .grid import Grid
 from .kinematics import DEFAULT_CORIOLIS_RULE, default_coriolis, default_f0_latitude, resolve_coriolis
 from .solver import QGOperator, floor_sigma, solve
@@ -137,6 +137,30 @@ def select_domain(ds: xr.Dataset, domain=None, equator_mask: float | None = C.DE
     return out
 
 
+#: treatments of below-ground and missing points in the inversion
+BELOW_GROUND_CHOICES = (None, "mask")
+
+#: the advice of every error about NaN in the inversion (one wording; the command-line option is the
+#: one the command line passes to ``below_ground``)
+_NAN_ADVICE = ("choose levels above the ground or a smaller domain, or pass below_ground='mask' (command line: "
+               "--below-ground mask) to zero the forcing there and report ω as NaN there; fill='zero' is "
+               "deprecated (it reports ω at below-ground points)")
+
+
+def _below_ground(sub: xr.Dataset, names: list, grid: Grid) -> xr.DataArray:
+    """Points the inversion treats as below ground: a forcing term or T missing, or p > surface pressure.
+
+    Surface pressure is read from a variable ``surface_pressure`` [Pa] when present (it flags the
+    model's extrapolated values under the terrain, which are finite).
+    """
+    under = xr.zeros_like(sub["temperature"], dtype=bool)
+    for n in [*names, "rhs_total", "temperature"]:
+        under = under | sub[n].isnull()
+    if "surface_pressure" in sub:
+        under = under | (sub[LEVEL] > sub["surface_pressure"])
+    return under.transpose(*sub["temperature"].dims)
+
+
 # ---------------------------------------------------------------------------- both hemispheres
 def _hemisphere_domains(ds: xr.Dataset, band: float) -> list:
     """The (lat_min, lat_max) of each hemisphere's extratropical band, when the grid has both.
@@ -200,7 +224,7 @@ def _solve_step(rhs, sigma, boundary, *, op_kwargs, fsq, nterms, method, tol, ma
             lev = np.flatnonzero(bad.any(axis=(0, 2, 3))) + 1
             raise InputDataError(
                 f"the right-hand side has NaN on level(s) {', '.join(f'{levels_hpa[k]:g}' for k in lev)} hPa "
-                f"(below ground or masked); choose levels above the ground, a smaller domain, or fill='zero'"
+                f"(below ground or missing); {_NAN_ADVICE}"
             )
     op = QGOperator(sigma=np.asarray(sigma, dtype=np.float64), fsq=fsq, **op_kwargs)
     out = np.empty((nterms + 1,) + rhs.shape[1:])
@@ -232,6 +256,7 @@ def invert_omega(
     domain=None,
     boundary=None,
     fill: str | None = None,
+    below_ground: str | None = None,
     method: str = "auto",
     tol: float = 1e-8,
     maxiter: int = 200,
@@ -279,8 +304,18 @@ def invert_omega(
         ω on the domain edges (top, bottom, lateral): 0 by default; ``"model"`` takes
         ``ds["omega"]``; or a DataArray on the grid.  Its contribution is ``omega_boundary``.
     fill : None or "zero"
-        What to do with NaN in the right-hand side (below-ground levels): refuse (default)
-        or replace by zero.
+        Deprecated (use ``below_ground``): ``"zero"`` replaces NaN in the right-hand side by zero
+        and reports ω at those points too.
+    below_ground : None or "mask"
+        Treatment of below-ground and missing points: ``None`` (default) refuses NaN in the
+        right-hand side, naming the levels.  ``"mask"``: a point is below ground where a forcing
+        term or the temperature is NaN, or where p exceeds ``ds["surface_pressure"]`` [Pa] when
+        that variable is present (the model's extrapolated values are finite); the forcing is set
+        to zero there (a source-free region, so ω there is the smooth continuation from above),
+        σ is computed without those temperatures, and every ω and w output is NaN there.  An
+        isolated missing value above ground gets the same treatment: forcing zero, ω NaN at that
+        point only (the attribute ``qgforce_below_ground`` records the count).  Command line:
+        ``--below-ground mask``.
     method : {"auto", "separable", "krylov"}
         Solver (see :func:`qgforce.solver.solve`).
     tol, maxiter : float, int
@@ -313,6 +348,12 @@ def invert_omega(
         raise GridError(f"sigma must be 'mean' or 'local'; found {sigma!r}")
     if fill not in (None, "zero"):
         raise GridError(f"fill must be None or 'zero'; found {fill!r}")
+    if below_ground not in BELOW_GROUND_CHOICES:
+        raise OptionError(f"below_ground must be None (refuse NaN) or 'mask'; found {below_ground!r} "
+                          f"(command line: --below-ground mask)")
+    if fill == "zero":
+        warnings.warn("fill='zero' is deprecated: it reports ω at below-ground points; use below_ground='mask', "
+                      "which zeroes the forcing there and reports ω as NaN there", DeprecationWarning, stacklevel=2)
     if "temperature" not in ds:
         raise MissingVariableError(
             "the omega inversion needs temperature (for the static stability σ); pass names={'temperature': ...} to open_dataset"
@@ -325,10 +366,11 @@ def invert_omega(
         # a grid reaching into both hemispheres: one f0 of the right sign each (an f0 latitude of the
         # wrong sign for one of them is an OptionError from resolve_coriolis)
         options = dict(form=form, sigma=sigma, sigma_floor=sigma_floor, coriolis=coriolis or "f0", f0_latitude=f0_latitude,
-                       smoothing=smoothing, boundary=boundary, fill=fill, method=method, tol=tol, maxiter=maxiter,
+                       smoothing=smoothing, boundary=boundary, fill=fill, below_ground=below_ground, method=method, tol=tol, maxiter=maxiter,
                        workers=workers, equator_mask=equator_mask)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", EquatorialMaskWarning)
+            warnings.simplefilter("ignore", DeprecationWarning)  # warned once above
             parts = [invert_omega(ds, domain=d, **options) for d in hemispheres]
         warnings.warn(
             f"the grid reaches into both hemispheres: ω is solved on latitudes {hemispheres[0][0]:g}..{hemispheres[0][1]:g} "
@@ -367,6 +409,10 @@ def invert_omega(
         raise MissingVariableError("the right-hand-side dataset lacks attrs['qgforce_terms']; build it with qgforce.forcing.omega_rhs")
 
     temperature = sub["temperature"]
+    under = None
+    if below_ground == "mask":
+        under = _below_ground(sub, names, grid)
+        temperature = temperature.where(~under)
     attrs_sigma = {}
     if sigma == "mean":
         sig = mean_static_stability(temperature, grid)
@@ -376,6 +422,8 @@ def invert_omega(
         raw = static_stability(temperature)
         # floored lazily; the count is part of the output
         sig = np.maximum(raw, sigma_floor)
+        if under is not None:  # σ undefined where T is masked: the floor there (those points are masked in ω)
+            sig = sig.fillna(sigma_floor)
         n_floored = (raw < sigma_floor).sum(dim=[LEVEL, *grid.dims])
         attrs_sigma["qgforce_sigma"] = f"local, floored at {sigma_floor:g} m2 Pa-2 s-2"
         sig_core = [LEVEL, *grid.dims]
@@ -391,6 +439,8 @@ def invert_omega(
         raise MissingVariableError("the right-hand-side dataset lacks 'rhs_total'; build it with qgforce.forcing.omega_rhs")
     solved = names + ["rhs_total"]
     stack = xr.concat([sub[n] for n in solved], dim="qgforce_term").assign_coords(qgforce_term=solved)
+    if under is not None:
+        stack = stack.where(~under, 0.0)
     core = [LEVEL, *grid.dims]
     if isinstance(boundary, str) and boundary == "model":
         if "omega" not in sub:
@@ -434,6 +484,9 @@ def invert_omega(
         "qgforce_smoothing": rhs.attrs.get("qgforce_smoothing", "none"),
         "qgforce_boundary": battrs,
         "qgforce_fill": fill or "refuse NaN",
+        "qgforce_below_ground": "refuse NaN" if under is None else (
+            "mask: forcing zero and omega NaN at below-ground or missing points"
+            + (" (p > surface_pressure, or NaN)" if "surface_pressure" in sub else " (NaN)")),
         "qgforce_solver_request": method,
         "qgforce_solver_tolerance": tol,
         **attrs_sigma,
@@ -455,6 +508,9 @@ def invert_omega(
     out["omega_total"] = total.assign_attrs(
         units=units, long_name="QG omega (sum of all forcing terms)", standard_name="lagrangian_tendency_of_air_pressure",
         qgforce_terms=" ".join(terms) + (" boundary" if boundary is not None else ""))
+    if under is not None:
+        for n in [v for v in out.data_vars if str(v).startswith("omega_")]:
+            out[n] = out[n].where(~under)
     w = omega_to_w(out["omega_total"], temperature, sub.get("specific_humidity"))
     out["w_total"] = w.assign_attrs(long_name="QG vertical velocity (hydrostatic, from omega_total)")
     stats = stats.assign_coords({c: v for c, v in temperature.coords.items() if set(v.dims) <= set(stats.dims)})
