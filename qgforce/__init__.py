@@ -24,7 +24,9 @@ from .errors import (
     GridError,
     InputDataError,
     MissingVariableError,
+    OmittedTermWarning,
     OptionError,
+    PoleRowWarning,
     QGForceError,
     QGForceWarning,
     UnitsError,
@@ -50,6 +52,7 @@ from .kinematics import (
     advection,
     beta_parameter,
     coriolis_parameter,
+    default_coriolis,
     deformation,
     geostrophic_vorticity,
     geostrophic_wind,
@@ -103,6 +106,7 @@ __all__ = [
     "w_to_omega",
     # kinematics
     "coriolis_parameter",
+    "default_coriolis",
     "beta_parameter",
     "geostrophic_wind",
     "grid_relative_wind",
@@ -160,4 +164,6 @@ __all__ = [
     "QGForceWarning",
     "EquatorialMaskWarning",
     "DataQualityWarning",
+    "OmittedTermWarning",
+    "PoleRowWarning",
 ]

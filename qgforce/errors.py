@@ -78,6 +78,16 @@ class DataQualityWarning(QGForceWarning):
     """Input values were altered (clipped, floored, filled) to make a computation possible."""
 
 
+class PoleRowWarning(QGForceWarning):
+    """Values on a pole row were masked: the nested derivatives there use the extrapolated metric
+    of the nearest rows and are not comparable with the rest of the grid."""
+
+
+class OmittedTermWarning(QGForceWarning):
+    """Some diagnostics could not be computed from the data given (too few levels, a missing
+    variable) and were left out of the result; the message and an attribute list them and why."""
+
+
 __all__ = [
     "QGForceError",
     "MissingVariableError",
@@ -89,4 +99,6 @@ __all__ = [
     "QGForceWarning",
     "EquatorialMaskWarning",
     "DataQualityWarning",
+    "OmittedTermWarning",
+    "PoleRowWarning",
 ]

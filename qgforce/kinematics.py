@@ -23,11 +23,14 @@ import xarray as xr
 from . import _stencils as K
 from . import constants as C
 from .calculus import apply_horizontal, gradient, laplacian
-from .errors import EquatorialMaskWarning, GridError
+from .errors import EquatorialMaskWarning, GridError, OptionError
 from .grid import Grid
 
 __all__ = [
     "Coriolis",
+    "DEFAULT_F0_MAX_SPAN_DEGREES",
+    "default_coriolis",
+    "default_f0_latitude",
     "resolve_coriolis",
     "coriolis_parameter",
     "beta_parameter",
@@ -57,6 +60,23 @@ def _on_grid(values: np.ndarray, grid: Grid, like: xr.DataArray | None = None, *
     return da
 
 
+class _CoriolisChoiceError(OptionError, GridError):
+    """A bad ``coriolis`` value: an OptionError, and a GridError as it was before the option existed."""
+
+
+#: widest latitude span [degrees] of a one-hemisphere domain on which the default Coriolis choice is f0
+#: (*common practice*: the β-plane approximation behind one f0 holds over a few tens of degrees)
+DEFAULT_F0_MAX_SPAN_DEGREES = 60.0
+
+#: the default rule in words, recorded in the ``qgforce_coriolis_rule`` attribute of every output and
+#: repeated by the documentation and help texts (one wording, written once)
+DEFAULT_CORIOLIS_RULE = (
+    "coriolis=None: f0 = 2 Omega sin(phi0) at the cos(latitude)-weighted mean latitude phi0 of the domain "
+    "when the domain lies in one hemisphere and spans at most "
+    f"{DEFAULT_F0_MAX_SPAN_DEGREES:g} degrees of latitude; the local f = 2 Omega sin(latitude) otherwise"
+)
+
+
 @dataclass(frozen=True)
 class Coriolis:
     """The Coriolis choice of a diagnostic: local f(φ) or a constant reference f0.
@@ -72,6 +92,9 @@ class Coriolis:
         Degrees.
     mask : ndarray of bool
         Points within the equatorial band, where the geostrophic wind is not defined.
+    equator_mask_degrees : float
+    rule : str
+        How the choice was made: ``"requested"`` or the default rule (:data:`DEFAULT_CORIOLIS_RULE`).
     description : str
         One line for the attrs of outputs.
     """
@@ -82,6 +105,7 @@ class Coriolis:
     reference_latitude: float
     mask: np.ndarray
     equator_mask_degrees: float
+    rule: str = "requested"
 
     @property
     def description(self) -> str:
@@ -90,9 +114,53 @@ class Coriolis:
         return "local f = 2 Omega sin(latitude)"
 
 
+def default_f0_latitude(grid: Grid) -> float:
+    """The default reference latitude φ0 [degrees]: the cos φ-weighted (area) mean latitude.
+
+    φ0 = Σ φ_ij cos φ_ij / Σ cos φ_ij over the grid points (on a projected grid, the map-area
+    weights of :meth:`Grid.area_mean_weights`).  On the demo domain this is 44.1°, not the plain
+    mean of the latitudes.
+    """
+    return float((grid.area_mean_weights() * grid.latitude).sum())
+
+
+def default_coriolis(grid: Grid) -> str:
+    """The Coriolis choice used when a function is given ``coriolis=None`` (the default everywhere).
+
+    Rule (:data:`DEFAULT_CORIOLIS_RULE`): ``"f0"`` when every latitude of the grid is on one side of
+    the equator and the grid spans at most :data:`DEFAULT_F0_MAX_SPAN_DEGREES` (60°) of latitude;
+    ``"local"`` otherwise (global, hemispheric or equator-crossing grids).  The reference latitude of
+    ``"f0"`` is :func:`default_f0_latitude`.
+
+    Notes
+    -----
+    One f0 is the textbook QG (β-plane) choice (Holton & Hakim 2013, §6.2), in which the traditional
+    and Q-vector forms of the omega equation agree exactly; over a wider span f departs from f0 by
+    more than a factor of about 2 and the local f is the better geostrophic scaling (*common practice*).
+    """
+    lat = np.asarray(grid.latitude, dtype=np.float64)
+    one_side = bool(np.all(lat > 0.0) or np.all(lat < 0.0))
+    span = float(np.nanmax(lat) - np.nanmin(lat))
+    return "f0" if one_side and span <= DEFAULT_F0_MAX_SPAN_DEGREES else "local"
+
+
+def _check_f0_side(grid: Grid, f0_latitude: float) -> None:
+    """An f0 latitude across the equator from a one-hemisphere domain gives ω of the wrong sign."""
+    lat = np.asarray(grid.latitude, dtype=np.float64)
+    north, south = bool(np.all(lat >= 0.0)), bool(np.all(lat <= 0.0))
+    if (north and f0_latitude < 0.0) or (south and f0_latitude > 0.0):
+        side, other = ("northern", "southern") if north else ("southern", "northern")
+        raise OptionError(
+            f"f0_latitude {f0_latitude:g} is in the {other} hemisphere but the domain lies in the {side} "
+            f"hemisphere (latitudes {lat.min():.2f} to {lat.max():.2f}); f0 of the wrong sign reverses ω. "
+            f"Use a latitude inside the domain (e.g. {-f0_latitude:g}) or leave it unset for the "
+            f"cos(latitude)-weighted mean latitude (command line: --f0-latitude)"
+        )
+
+
 def resolve_coriolis(
     grid: Grid,
-    coriolis: str = "local",
+    coriolis: str | None = None,
     f0_latitude: float | None = None,
     equator_mask: float | None = C.DEFAULT_EQUATOR_MASK_DEGREES,
     warn: bool = True,
@@ -102,11 +170,14 @@ def resolve_coriolis(
     Parameters
     ----------
     grid : Grid
-    coriolis : {"local", "f0"}
-        ``"local"``: f = 2Ω sin φ at every point (maps over large domains).  ``"f0"``: one
-        reference value f0 = 2Ω sin φ0 (textbook QG; the two omega forms agree exactly with it).
+    coriolis : {None, "local", "f0"}
+        ``None`` (default): :func:`default_coriolis` decides (f0 on a one-hemisphere domain spanning
+        at most 60° of latitude, local f otherwise).  ``"local"``: f = 2Ω sin φ at every point (maps
+        over large domains).  ``"f0"``: one reference value f0 = 2Ω sin φ0 (textbook QG; the two
+        omega forms agree exactly with it).
     f0_latitude : float, optional
-        φ0 in degrees; default the area-weighted mean latitude of the grid.
+        φ0 in degrees; default the cos φ-weighted mean latitude of the grid
+        (:func:`default_f0_latitude`; 44.1° on the demo domain).
     equator_mask : float or None
         Half-width [degrees] of the equatorial band that is masked (NaN) because geostrophy
         fails there; ``None`` or 0 disables the mask.
@@ -115,17 +186,23 @@ def resolve_coriolis(
 
     Raises
     ------
+    OptionError
+        For an unknown choice, or an f0 latitude across the equator from a one-hemisphere domain.
     GridError
-        For an unknown choice, or an f0 latitude inside the equatorial band.
+        For an f0 latitude inside the equatorial band.
     """
+    rule = "requested"
+    if coriolis is None:
+        coriolis, rule = default_coriolis(grid), DEFAULT_CORIOLIS_RULE
     if coriolis not in ("local", "f0"):
-        raise GridError(f"coriolis must be 'local' or 'f0'; found {coriolis!r}")
+        raise _CoriolisChoiceError(f"coriolis must be None (the default rule), 'local' or 'f0'; found {coriolis!r}")
     lat = grid.latitude
     band = float(equator_mask or 0.0)
     mask = np.abs(lat) < band
     if f0_latitude is None:
-        w = grid.area_mean_weights()
-        f0_latitude = float((w * lat).sum())
+        f0_latitude = default_f0_latitude(grid)
+    else:
+        _check_f0_side(grid, float(f0_latitude))
     if coriolis == "f0" and abs(f0_latitude) < max(band, 1e-6):
         raise GridError(
             f"the reference latitude {f0_latitude:.2f} lies within the equatorial band (|lat| < {band}); "
@@ -140,7 +217,7 @@ def resolve_coriolis(
             EquatorialMaskWarning,
             stacklevel=3,
         )
-    return Coriolis(coriolis, f, f0, float(f0_latitude), mask, band)
+    return Coriolis(coriolis, f, f0, float(f0_latitude), mask, band, rule)
 
 
 def coriolis_parameter(obj, grid: Grid | None = None) -> xr.DataArray:
@@ -158,13 +235,14 @@ def beta_parameter(obj, grid: Grid | None = None) -> xr.DataArray:
 
 
 def _choice_attrs(cor: Coriolis) -> dict:
-    return {"qgforce_coriolis": cor.description, "qgforce_equator_mask_degrees": cor.equator_mask_degrees}
+    return {"qgforce_coriolis": cor.description, "qgforce_coriolis_rule": cor.rule,
+            "qgforce_equator_mask_degrees": cor.equator_mask_degrees}
 
 
 def geostrophic_wind(
     geopotential: xr.DataArray,
     grid: Grid | None = None,
-    coriolis: str | Coriolis = "local",
+    coriolis: str | Coriolis | None = None,
     f0_latitude: float | None = None,
     equator_mask: float | None = C.DEFAULT_EQUATOR_MASK_DEGREES,
 ) -> tuple[xr.DataArray, xr.DataArray]:
@@ -175,8 +253,8 @@ def geostrophic_wind(
     geopotential : xarray.DataArray
         Φ [m2 s-2].
     grid : Grid, optional
-    coriolis : {"local", "f0"} or Coriolis
-        See :func:`resolve_coriolis`.
+    coriolis : {None, "local", "f0"} or Coriolis
+        ``None`` (default): the rule of :func:`default_coriolis`.  See :func:`resolve_coriolis`.
     f0_latitude, equator_mask : see :func:`resolve_coriolis`.
 
     Returns
@@ -272,13 +350,13 @@ def absolute_vorticity(u: xr.DataArray, v: xr.DataArray, grid: Grid | None = Non
 def geostrophic_vorticity(
     geopotential: xr.DataArray,
     grid: Grid | None = None,
-    coriolis: str | Coriolis = "f0",
+    coriolis: str | Coriolis | None = None,
     f0_latitude: float | None = None,
     equator_mask: float | None = C.DEFAULT_EQUATOR_MASK_DEGREES,
 ) -> xr.DataArray:
     """Geostrophic relative vorticity [s-1].
 
-    With ``coriolis="f0"``: ζ_g = ∇²Φ / f0 (textbook QG; the compact Laplacian).  With
+    ``coriolis=None`` (default) follows :func:`default_coriolis`.  With ``coriolis="f0"``: ζ_g = ∇²Φ / f0 (textbook QG; the compact Laplacian).  With
     ``"local"``: ζ_g = k·∇×V_g with V_g = (1/f) k × ∇Φ, which adds the β contribution
     −(β/f) u_g to ∇²Φ/f.
     """

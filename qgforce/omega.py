@@ -32,9 +32,9 @@ import numpy as np
 import xarray as xr
 
 from . import constants as C
-from .errors import EquatorialMaskWarning, GridError, InputDataError, MissingVariableError
+from .errors import EquatorialMaskWarning, GridError, InputDataError, MissingVariableError, OptionError
 from .grid import Grid
-from .kinematics import resolve_coriolis
+from .kinematics import DEFAULT_CORIOLIS_RULE, default_coriolis, default_f0_latitude, resolve_coriolis
 from .solver import QGOperator, floor_sigma, solve
 from .thermo import mean_static_stability, omega_to_w, static_stability
 
@@ -137,6 +137,81 @@ def select_domain(ds: xr.Dataset, domain=None, equator_mask: float | None = C.DE
     return out
 
 
+#: treatments of below-ground and missing points in the inversion
+BELOW_GROUND_CHOICES = (None, "mask")
+
+#: the advice of every error about NaN in the inversion (one wording; the command-line option is the
+#: one the command line passes to ``below_ground``)
+_NAN_ADVICE = ("choose levels above the ground or a smaller domain, or pass below_ground='mask' (command line: "
+               "--below-ground mask) to zero the forcing there and report ω as NaN there; fill='zero' is "
+               "deprecated (it reports ω at below-ground points)")
+
+
+def _below_ground(sub: xr.Dataset, names: list, grid: Grid) -> xr.DataArray:
+    """Points the inversion treats as below ground: a forcing term or T missing, or p > surface pressure.
+
+    Surface pressure is read from a variable ``surface_pressure`` [Pa] when present (it flags the
+    model's extrapolated values under the terrain, which are finite).
+    """
+    under = xr.zeros_like(sub["temperature"], dtype=bool)
+    for n in [*names, "rhs_total", "temperature"]:
+        under = under | sub[n].isnull()
+    if "surface_pressure" in sub:
+        under = under | (sub[LEVEL] > sub["surface_pressure"])
+    return under.transpose(*sub["temperature"].dims)
+
+
+# ---------------------------------------------------------------------------- both hemispheres
+def _hemisphere_domains(ds: xr.Dataset, band: float) -> list:
+    """The (lat_min, lat_max) of each hemisphere's extratropical band, when the grid has both.
+
+    Each band starts ``_BAND_MARGIN`` rows poleward of the equatorial mask (the forcing's stencils
+    read that far into the masked band).  Empty when the grid is not lat–lon with ascending
+    latitude, has no mask, or has fewer than 3 usable rows on either side.
+    """
+    if "latitude" not in ds.dims or band <= 0:
+        return []
+    lat = np.asarray(ds["latitude"].values, dtype=np.float64)
+    if lat.size < 2 or not np.all(np.diff(lat) > 0):
+        return []
+    north, south = lat[lat >= band], lat[lat <= -band]
+    if north.size < 3 + _BAND_MARGIN or south.size < 3 + _BAND_MARGIN:
+        return []
+    return [(float(south[0]), float(south[-1 - _BAND_MARGIN])), (float(north[_BAND_MARGIN]), float(north[-1]))]
+
+
+def _join_hemispheres(parts: list, ds: xr.Dataset) -> xr.Dataset:
+    """One dataset on the whole latitude axis of ``ds`` from per-hemisphere inversions (NaN between).
+
+    Fields on the latitude axis are placed on their rows; per-step solver statistics take the worse
+    hemisphere (largest residual and iteration count, summed floored points); a static stability
+    without a latitude dimension (the level mean of each hemisphere) is spread over its rows.
+    """
+    lat = ds["latitude"]
+    joined = {}
+    for name in parts[0].data_vars:
+        pieces = [p[name] for p in parts]
+        if "latitude" not in pieces[0].dims and name == "static_stability":
+            pieces = [pc.broadcast_like(p["omega_total"].isel({d: 0 for d in p["omega_total"].dims
+                                                              if d not in ("latitude", *pc.dims)}, drop=True))
+                      for pc, p in zip(pieces, parts)]
+        if "latitude" in pieces[0].dims:
+            joined[name] = xr.concat(pieces, dim="latitude", coords="minimal", compat="override",
+                                     combine_attrs="override").reindex(latitude=lat)
+        elif name == "sigma_floored_points":
+            joined[name] = sum(pieces[1:], pieces[0]).assign_attrs(pieces[0].attrs)
+        else:
+            joined[name] = xr.concat(pieces, dim="qgforce_hemisphere").max("qgforce_hemisphere").assign_attrs(pieces[0].attrs)
+    out = xr.Dataset(joined)
+    out.attrs = dict(parts[0].attrs)
+    out.attrs["qgforce_coriolis"] = "per hemisphere: " + "; ".join(
+        f"{side} {p.attrs['qgforce_coriolis']}" for side, p in zip(("south", "north"), parts))
+    out.attrs["qgforce_hemispheres"] = (
+        "solved separately on each hemisphere's extratropical band with its own f0 and joined; "
+        "NaN in the equatorial band")
+    return out
+
+
 # ---------------------------------------------------------------------------- one step
 def _solve_step(rhs, sigma, boundary, *, op_kwargs, fsq, nterms, method, tol, maxiter, workers, fill, levels_hpa):
     """Solve every term of one step.  rhs: (nterms, nz, ny, nx); sigma: (nz,) or (nz, ny, nx)."""
@@ -149,7 +224,7 @@ def _solve_step(rhs, sigma, boundary, *, op_kwargs, fsq, nterms, method, tol, ma
             lev = np.flatnonzero(bad.any(axis=(0, 2, 3))) + 1
             raise InputDataError(
                 f"the right-hand side has NaN on level(s) {', '.join(f'{levels_hpa[k]:g}' for k in lev)} hPa "
-                f"(below ground or masked); choose levels above the ground, a smaller domain, or fill='zero'"
+                f"(below ground or missing); {_NAN_ADVICE}"
             )
     op = QGOperator(sigma=np.asarray(sigma, dtype=np.float64), fsq=fsq, **op_kwargs)
     out = np.empty((nterms + 1,) + rhs.shape[1:])
@@ -175,12 +250,13 @@ def invert_omega(
     rhs: xr.Dataset | None = None,
     sigma: str = "mean",
     sigma_floor: float = DEFAULT_SIGMA_FLOOR,
-    coriolis: str = "f0",
+    coriolis: str | None = None,
     f0_latitude: float | None = None,
     smoothing=None,
     domain=None,
     boundary=None,
     fill: str | None = None,
+    below_ground: str | None = None,
     method: str = "auto",
     tol: float = 1e-8,
     maxiter: int = 200,
@@ -207,21 +283,39 @@ def invert_omega(
         (Krylov solver; the count of floored points is reported in attrs).
     sigma_floor : float
         Minimum local σ [m2 Pa-2 s-2].
-    coriolis : {"f0", "local"}
+    coriolis : {None, "f0", "local"}
         f in the operator and in the forcing: one reference value (textbook) or f(φ).
+        ``None`` (default): the rule of :func:`qgforce.kinematics.default_coriolis` applied to
+        the inversion domain (f0 on one hemisphere spanning at most 60° of latitude, local f
+        otherwise), recorded in the ``qgforce_coriolis_rule`` attribute.
     f0_latitude : float, optional
-        Reference latitude; default the area-weighted mean latitude of the inversion domain
-        (used for the forcing terms and the operator alike).
+        Reference latitude; default the cos φ-weighted mean latitude of the inversion domain
+        (44.1° on the demo domain; used for the forcing terms and the operator alike).
     smoothing : optional
         Smoothing of the inputs of the forcing terms (see :func:`qgforce.smoothing.smooth`).
     domain : optional
-        See :func:`select_domain`.
+        See :func:`select_domain`.  With ``None`` on a lat–lon grid reaching into both
+        hemispheres (and ``coriolis`` not ``"local"``, ``rhs`` not given), ω is solved on each
+        hemisphere's extratropical band separately (poleward of the equatorial mask and its
+        two-row margin), each with its own f0 (default: the cos φ-weighted mean latitude of that
+        band, so of the right sign), and joined: NaN in the equatorial band, attrs
+        ``qgforce_hemispheres`` and a per-hemisphere ``qgforce_coriolis``.
     boundary : None, "model" or xarray.DataArray
         ω on the domain edges (top, bottom, lateral): 0 by default; ``"model"`` takes
         ``ds["omega"]``; or a DataArray on the grid.  Its contribution is ``omega_boundary``.
     fill : None or "zero"
-        What to do with NaN in the right-hand side (below-ground levels): refuse (default)
-        or replace by zero.
+        Deprecated (use ``below_ground``): ``"zero"`` replaces NaN in the right-hand side by zero
+        and reports ω at those points too.
+    below_ground : None or "mask"
+        Treatment of below-ground and missing points: ``None`` (default) refuses NaN in the
+        right-hand side, naming the levels.  ``"mask"``: a point is below ground where a forcing
+        term or the temperature is NaN, or where p exceeds ``ds["surface_pressure"]`` [Pa] when
+        that variable is present (the model's extrapolated values are finite); the forcing is set
+        to zero there (a source-free region, so ω there is the smooth continuation from above),
+        σ is computed without those temperatures, and every ω and w output is NaN there.  An
+        isolated missing value above ground gets the same treatment: forcing zero, ω NaN at that
+        point only (the attribute ``qgforce_below_ground`` records the count).  Command line:
+        ``--below-ground mask``.
     method : {"auto", "separable", "krylov"}
         Solver (see :func:`qgforce.solver.solve`).
     tol, maxiter : float, int
@@ -254,18 +348,50 @@ def invert_omega(
         raise GridError(f"sigma must be 'mean' or 'local'; found {sigma!r}")
     if fill not in (None, "zero"):
         raise GridError(f"fill must be None or 'zero'; found {fill!r}")
+    if below_ground not in BELOW_GROUND_CHOICES:
+        raise OptionError(f"below_ground must be None (refuse NaN) or 'mask'; found {below_ground!r} "
+                          f"(command line: --below-ground mask)")
+    if fill == "zero":
+        warnings.warn("fill='zero' is deprecated: it reports ω at below-ground points; use below_ground='mask', "
+                      "which zeroes the forcing there and reports ω as NaN there", DeprecationWarning, stacklevel=2)
     if "temperature" not in ds:
         raise MissingVariableError(
             "the omega inversion needs temperature (for the static stability σ); pass names={'temperature': ...} to open_dataset"
         )
     from .forcing import omega_rhs
 
-    if f0_latitude is None:
-        # one reference latitude for the forcing and the operator: the domain's area-weighted mean
+    hemispheres = _hemisphere_domains(ds, float(equator_mask or 0.0)) if (
+        domain is None and rhs is None and coriolis != "local") else []
+    if hemispheres:
+        # a grid reaching into both hemispheres: one f0 of the right sign each (an f0 latitude of the
+        # wrong sign for one of them is an OptionError from resolve_coriolis)
+        options = dict(form=form, sigma=sigma, sigma_floor=sigma_floor, coriolis=coriolis or "f0", f0_latitude=f0_latitude,
+                       smoothing=smoothing, boundary=boundary, fill=fill, below_ground=below_ground, method=method, tol=tol, maxiter=maxiter,
+                       workers=workers, equator_mask=equator_mask)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", EquatorialMaskWarning)
+            warnings.simplefilter("ignore", DeprecationWarning)  # warned once above
+            parts = [invert_omega(ds, domain=d, **options) for d in hemispheres]
+        warnings.warn(
+            f"the grid reaches into both hemispheres: ω is solved on latitudes {hemispheres[0][0]:g}..{hemispheres[0][1]:g} "
+            f"and {hemispheres[1][0]:g}..{hemispheres[1][1]:g} separately, each with its own f0, and is NaN in "
+            f"between (pass domain=... for one region)", EquatorialMaskWarning, stacklevel=2)
+        out = _join_hemispheres(parts, ds)
+        if coriolis is None:
+            out.attrs["qgforce_coriolis_rule"] = ("coriolis=None on a grid reaching into both hemispheres: f0 per "
+                                                  "hemisphere at the cos(latitude)-weighted mean latitude of its band")
+        return out
+
+    rule = "requested"
+    if f0_latitude is None or coriolis is None:
+        # one Coriolis choice and reference latitude for the forcing and the operator, from the domain
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", EquatorialMaskWarning)
             dom_grid = Grid.from_dataset(select_domain(ds[["temperature"]], domain, equator_mask))
-        f0_latitude = float((dom_grid.area_mean_weights() * dom_grid.latitude).sum())
+        if coriolis is None:
+            coriolis, rule = default_coriolis(dom_grid), DEFAULT_CORIOLIS_RULE
+        if f0_latitude is None:
+            f0_latitude = default_f0_latitude(dom_grid)
     if rhs is None:
         rhs = omega_rhs(ds, form=form, coriolis=coriolis, f0_latitude=f0_latitude, smoothing=smoothing, equator_mask=equator_mask)
     sub = select_domain(xr.merge([ds, rhs], compat="override", join="inner"), domain, equator_mask)
@@ -283,6 +409,10 @@ def invert_omega(
         raise MissingVariableError("the right-hand-side dataset lacks attrs['qgforce_terms']; build it with qgforce.forcing.omega_rhs")
 
     temperature = sub["temperature"]
+    under = None
+    if below_ground == "mask":
+        under = _below_ground(sub, names, grid)
+        temperature = temperature.where(~under)
     attrs_sigma = {}
     if sigma == "mean":
         sig = mean_static_stability(temperature, grid)
@@ -292,6 +422,8 @@ def invert_omega(
         raw = static_stability(temperature)
         # floored lazily; the count is part of the output
         sig = np.maximum(raw, sigma_floor)
+        if under is not None:  # σ undefined where T is masked: the floor there (those points are masked in ω)
+            sig = sig.fillna(sigma_floor)
         n_floored = (raw < sigma_floor).sum(dim=[LEVEL, *grid.dims])
         attrs_sigma["qgforce_sigma"] = f"local, floored at {sigma_floor:g} m2 Pa-2 s-2"
         sig_core = [LEVEL, *grid.dims]
@@ -307,6 +439,8 @@ def invert_omega(
         raise MissingVariableError("the right-hand-side dataset lacks 'rhs_total'; build it with qgforce.forcing.omega_rhs")
     solved = names + ["rhs_total"]
     stack = xr.concat([sub[n] for n in solved], dim="qgforce_term").assign_coords(qgforce_term=solved)
+    if under is not None:
+        stack = stack.where(~under, 0.0)
     core = [LEVEL, *grid.dims]
     if isinstance(boundary, str) and boundary == "model":
         if "omega" not in sub:
@@ -346,9 +480,13 @@ def invert_omega(
     choice = {
         "qgforce_form": form,
         "qgforce_coriolis": cor.description,
+        "qgforce_coriolis_rule": rule,
         "qgforce_smoothing": rhs.attrs.get("qgforce_smoothing", "none"),
         "qgforce_boundary": battrs,
         "qgforce_fill": fill or "refuse NaN",
+        "qgforce_below_ground": "refuse NaN" if under is None else (
+            "mask: forcing zero and omega NaN at below-ground or missing points"
+            + (" (p > surface_pressure, or NaN)" if "surface_pressure" in sub else " (NaN)")),
         "qgforce_solver_request": method,
         "qgforce_solver_tolerance": tol,
         **attrs_sigma,
@@ -370,6 +508,9 @@ def invert_omega(
     out["omega_total"] = total.assign_attrs(
         units=units, long_name="QG omega (sum of all forcing terms)", standard_name="lagrangian_tendency_of_air_pressure",
         qgforce_terms=" ".join(terms) + (" boundary" if boundary is not None else ""))
+    if under is not None:
+        for n in [v for v in out.data_vars if str(v).startswith("omega_")]:
+            out[n] = out[n].where(~under)
     w = omega_to_w(out["omega_total"], temperature, sub.get("specific_humidity"))
     out["w_total"] = w.assign_attrs(long_name="QG vertical velocity (hydrostatic, from omega_total)")
     stats = stats.assign_coords({c: v for c, v in temperature.coords.items() if set(v.dims) <= set(stats.dims)})

@@ -360,10 +360,11 @@ def test_pole_rows_derivatives_converge_at_second_order():
 def test_global_grid_with_pole_rows_forcing_and_inversion():
     lat, lon = np.arange(-90.0, 90.0 + 1e-9, 5.0), np.arange(0.0, 360.0, 10.0)
     ds = open_dataset(small(steps=1, latitude=lat, longitude=lon), chunks=None)
-    with pytest.warns(EquatorialMaskWarning):
+    with pytest.warns(EquatorialMaskWarning), pytest.warns(qgforce.errors.PoleRowWarning):
         ft = forcing_terms(ds, coriolis="local")
-    for v in ft.data_vars:
-        assert np.isfinite(ft[v].sel(latitude=[-90.0, 90.0]).values).all(), v
+    for v in ft.data_vars:  # pole rows are masked with a warning (the metric vanishes there)
+        assert np.isnan(ft[v].sel(latitude=[-90.0, 90.0]).values).all(), v
+        assert np.isfinite(ft[v].sel(latitude=[-85.0, 85.0]).values).all(), v
     with pytest.warns(EquatorialMaskWarning):  # the right-hand side is built on the whole grid first
         om = invert_omega(ds, coriolis="local", domain=(20.0, 90.0))  # the pole row is a boundary row of the solve
     assert float(om["latitude"].max()) == 90.0
@@ -415,8 +416,10 @@ def test_single_level(scalar):
     # horizontal diagnostics: the same numbers as on that level of the full column
     _same(temperature_advection(one).to_dataset(), temperature_advection(full, levels=[500]).to_dataset())
     _same(frontogenesis(one), frontogenesis(full, levels=[500]))
-    with pytest.raises(GridError, match=r"at least 3 pressure levels.*the data has 1 \(500 hPa\)"):
-        forcing_terms(one)
+    # forcing_terms computes the per-level terms and says what one level does not allow
+    with pytest.warns(qgforce.errors.OmittedTermWarning, match=r"at least 3 pressure levels; the data has 1 level \(500 hPa\)"):
+        ft = forcing_terms(one)
+    assert "differential_vorticity_advection" not in ft and "q_vector_forcing" in ft
     with pytest.raises(GridError, match=r"at least 3 pressure levels.*the data has 1"):
         invert_omega(one)
     with pytest.raises(GridError, match=r"at least 3 levels.*has 1"):
