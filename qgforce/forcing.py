@@ -497,6 +497,12 @@ class _Context:
 
     # ------------------------------------------------------------------ Q-vectors
     @cached_property
+    def thermal_advection_term_values(self) -> xr.DataArray:
+        """−(R_d/p) ∇²A_T with the geostrophic A_T [Pa-1 s-3] (unlabelled)."""
+        return laplacian(self.temperature_advection("geostrophic"), self.grid) * (
+            -C.DRY_AIR_GAS_CONSTANT / pressure(self.T))
+
+    @cached_property
     def q_vectors(self):
         """(Q_x, Q_y, Q_nx, Q_ny, Q_sx, Q_sy) [m Pa-1 s-3] in one fused pass."""
         k = -C.DRY_AIR_GAS_CONSTANT / pressure(self.T)
@@ -618,9 +624,8 @@ def _build_differential_vorticity_advection(ctx: _Context, a_eta: xr.DataArray) 
 
 
 def _build_thermal_advection_term(ctx: _Context) -> xr.DataArray:
-    term = laplacian(ctx.temperature_advection("geostrophic"), ctx.grid) * (-C.DRY_AIR_GAS_CONSTANT / pressure(ctx.T))
     return _finish(
-        term, ctx.T, "thermal_advection_term", ctx.attrs(),
+        ctx.thermal_advection_term_values, ctx.T, "thermal_advection_term", ctx.attrs(),
         units="Pa-1 s-3", long_name="thermal advection term, -(R_d/p) laplacian(A_T)",
     )
 
@@ -674,6 +679,17 @@ def _build_frontogenesis(ctx: _Context, wind: str) -> dict:
     }
     return {name: _finish(da, like, name, attrs, units=units, long_name=long_name)
             for name, (da, units, long_name) in labels.items()}
+
+
+def _stored(da: xr.DataArray, dtype: np.dtype, target=None) -> xr.DataArray:
+    """``da`` in the storage dtype, in the caller's preallocated ``target`` when given (a no-op when written there)."""
+    if target is not None and da.chunks is None and not np.shares_memory(target, da.data):
+        if target.shape != da.shape or target.dtype != dtype:
+            raise QGForceError(f"out[{da.name!r}] must be a {dtype.name} array of shape {da.shape}; "
+                               f"found {target.dtype.name} {target.shape}")
+        np.copyto(target, da.data)
+        return da.copy(data=target)
+    return da if da.dtype == dtype else da.astype(dtype)
 
 
 def _dataset(parts: dict, attrs: dict) -> xr.Dataset:
@@ -1159,7 +1175,8 @@ def _rhs(ctx: _Context, form: str) -> xr.Dataset:
 
 @_doc
 def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="full", coriolis="f0", f0_latitude=None,
-                  equator_mask=C.DEFAULT_EQUATOR_MASK_DEGREES, smoothing=None, levels=None, grid=None):
+                  equator_mask=C.DEFAULT_EQUATOR_MASK_DEGREES, smoothing=None, levels=None, grid=None, dtype=None,
+                  out=None, workers=None):
     """Every forcing diagnostic at every level, each intermediate computed once.
 
     Parameters
@@ -1172,6 +1189,15 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
     frontogenesis_wind : {"full", "geostrophic"}
         Wind of the frontogenesis diagnostics.
     {common}
+    dtype : {None, "float64", "float32"}, optional
+        Storage of the outputs (default float64); always computed in float64.
+    out : mapping of str to numpy.ndarray, optional
+        Preallocated arrays for any of the per-level outputs (C-contiguous, the shape of the input
+        fields with dims ``(..., level, y, x)``, the storage dtype); on lat–lon grids with numpy
+        input the compiled pass writes into them, otherwise the results are copied in.
+    workers : int, optional
+        Threads of the compiled pass: a count, negative to back off from the cores (−1: all);
+        default ``$QGFORCE_NUM_THREADS`` or every core (at most 8).
 
     Returns
     -------
@@ -1183,6 +1209,11 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
         ``isentrope_dilatation_angle``, ``potential_temperature_gradient``, ``u_geostrophic``,
         ``v_geostrophic`` and ``geopotential`` (the field the diagnostics used, i.e. smoothed
         when ``smoothing`` is set), each with its own attrs.
+
+    Notes
+    -----
+    On lat–lon grids with uniform longitudes and numpy input the horizontal outputs come from one
+    compiled pass per level (:mod:`qgforce._forcing_engine`), equal to the numpy path to round-off.
     """
     temperature_wind = _check_choice(temperature_wind, _WINDS, "temperature_wind")
     frontogenesis_wind = _check_choice(frontogenesis_wind, _WINDS, "frontogenesis_wind")
@@ -1209,7 +1240,11 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
             out["v_north"] = c.v_geostrophic_north
         return out
 
-    h = ctx.evaluate(horizontal)
+    from ._forcing_engine import compiled_context, resolve_dtype
+
+    store = resolve_dtype(dtype)
+    compiled = compiled_context(ctx, temperature_wind, frontogenesis_wind, dtype=store, out=out, workers=workers)
+    h = horizontal(compiled) if compiled is not None else ctx.evaluate(horizontal)
     v_north = h.pop("v_north") if "v_north" in h else h["v_geostrophic"]
     order = ("temperature_advection", "vorticity_advection", "differential_vorticity_advection",
              "thermal_advection_term", "q_vector_x", "q_vector_y", "q_vector_forcing", "qn_x", "qn_y", "qs_x",
@@ -1221,6 +1256,7 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
     parts = {k: h[k] for k in order}
     geo_attrs = ctx.attrs()
     parts["geopotential"] = ctx.phi.copy(deep=False).assign_attrs(qgforce_smoothing=ctx.smoothing)
-    parts = {k: ctx.select(v) for k, v in parts.items()}
+    parts = {k: _stored(ctx.select(v), store, (out or {}).get(k)) if k != "geopotential" else ctx.select(v)
+             for k, v in parts.items()}
     return _dataset(parts, {**geo_attrs, "qgforce_temperature_wind": temperature_wind,
                             "qgforce_frontogenesis_wind": frontogenesis_wind})
