@@ -1,13 +1,13 @@
 """The compiled path of :func:`qgforce.forcing.forcing_terms`: stencils, allocation, threads.
 
-:func:`compiled_context` is the one dispatch point used by :mod:`qgforce.forcing`.  When the
-prepared call can run compiled (a lat–lon grid with uniform longitudes and at least 4 × 4
-points, numpy input), it computes every horizontal output with
+:func:`compiled_context` is the one dispatch point used by :mod:`qgforce.forcing`
+(``method="compiled"``).  On a lat–lon grid with uniform longitudes and at least 4 × 4 points,
+with numpy input, it computes every horizontal output with
 :func:`qgforce._forcing_kernels.latlon_level`, one level per kernel call, levels shared among
 threads (the kernel runs without the GIL), into preallocated arrays, and returns the call's
 context with those results in place of its cached intermediates: the labelling builders and the
 vertical terms (∂/∂p over the levels, a second pass) of :mod:`qgforce.forcing` then run
-unchanged.  Otherwise it returns ``None`` and the numpy path runs.
+unchanged.  Other input raises :class:`~qgforce.errors.OptionError` naming what is supported.
 
 All stencil weights and metric factors are computed here with the functions of
 :mod:`qgforce._stencils` and :class:`qgforce.Grid`, the same arrays the numpy path multiplies by,
@@ -26,6 +26,7 @@ from . import _stencils as K
 from . import constants as C
 from .calculus import LEVEL, gradient
 from .errors import OptionError
+from .kinematics import _choice_attrs
 
 __all__ = ["compiled_context", "resolve_threads", "THREADS_ENV", "OUTPUT_NAMES"]
 
@@ -164,7 +165,7 @@ def _slabs(da: xr.DataArray, dims) -> np.ndarray:
 
 
 def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=None, out=None, workers=None):
-    """Fill ``ctx`` with the compiled horizontal outputs; ``None`` where only the numpy path applies.
+    """Fill ``ctx`` with the compiled horizontal outputs and return it.
 
     Parameters
     ----------
@@ -181,12 +182,21 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
 
     Returns
     -------
-    qgforce.forcing._Context or None
+    qgforce.forcing._Context
+
+    Raises
+    ------
+    OptionError
+        For a projected grid, non-uniform longitudes, fewer than 4 × 4 points or dask input.
     """
     store = resolve_dtype(dtype)
     threads = resolve_threads(workers)
     if not _applies(ctx):
-        return None
+        raise OptionError(
+            f"method='compiled' runs on lat-lon grids with uniform longitudes, at least 4 x 4 points and "
+            f"in-memory (numpy) input; this call has a {ctx.grid.kind} grid of {ctx.grid.shape[0]} x "
+            f"{ctx.grid.shape[1]} points{' and dask input' if any(da.chunks is not None for da in ctx.fields.values()) else ''}. "
+            f"Use method='numpy' (the default), which runs everywhere.")
     from ._forcing_kernels import latlon_level
 
     grid, cor = ctx.grid, ctx.cor
@@ -203,9 +213,7 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
         U = V = T
     n = T.shape[0]
     p = np.broadcast_to(np.asarray(ref[LEVEL].values, dtype=np.float64)[
-        (None,) * (dims.index(LEVEL)) + (slice(None),)], shape[:-2]).reshape(-1) if LEVEL in dims else None
-    if p is None:
-        return None
+        (None,) * (dims.index(LEVEL)) + (slice(None),)], shape[:-2]).reshape(-1)
     k_rp = -C.DRY_AIR_GAS_CONSTANT / p
     c_theta = (C.REFERENCE_PRESSURE / p) ** C.KAPPA
     fx, fy = (np.ascontiguousarray(np.broadcast_to(g.values, (ny, nx)), dtype=np.float64)
@@ -245,6 +253,12 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
             list(pool.map(work, bounds[:-1], bounds[1:]))
     das = {k: xr.DataArray(a, dims=dims, coords=ref.coords) for k, a in arrays.items()}
     ctx._temperature_advection[temperature_wind] = das["temperature_advection"]
+    # the labels of kinematics.geostrophic_wind on lat-lon grids
+    wind_attrs = {"units": "m s-1", **_choice_attrs(cor)}
+    das["u_geostrophic"].attrs.update(long_name="eastward geostrophic wind",
+                                      standard_name="geostrophic_eastward_wind", **wind_attrs)
+    das["v_geostrophic"].attrs.update(long_name="northward geostrophic wind",
+                                      standard_name="geostrophic_northward_wind", **wind_attrs)
     ctx.__dict__.update(
         geostrophic=(das["u_geostrophic"], das["v_geostrophic"]),
         vorticity_advection=das["vorticity_advection"],

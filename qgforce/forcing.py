@@ -1176,7 +1176,7 @@ def _rhs(ctx: _Context, form: str) -> xr.Dataset:
 @_doc
 def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="full", coriolis="f0", f0_latitude=None,
                   equator_mask=C.DEFAULT_EQUATOR_MASK_DEGREES, smoothing=None, levels=None, grid=None, dtype=None,
-                  out=None, workers=None):
+                  out=None, workers=None, method="numpy"):
     """Every forcing diagnostic at every level, each intermediate computed once.
 
     Parameters
@@ -1193,11 +1193,15 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
         Storage of the outputs (default float64); always computed in float64.
     out : mapping of str to numpy.ndarray, optional
         Preallocated arrays for any of the per-level outputs (C-contiguous, the shape of the input
-        fields with dims ``(..., level, y, x)``, the storage dtype); on lat–lon grids with numpy
-        input the compiled pass writes into them, otherwise the results are copied in.
+        fields with dims ``(..., level, y, x)``, the storage dtype); the compiled pass writes into
+        them, the numpy path copies its results in.
     workers : int, optional
         Threads of the compiled pass: a count, negative to back off from the cores (−1: all);
         default ``$QGFORCE_NUM_THREADS`` or every core (at most 8).
+    method : {"numpy", "compiled"}
+        ``"compiled"``: one compiled pass per level (:mod:`qgforce._forcing_engine`; lat–lon grids
+        with uniform longitudes and numpy input), equal to the numpy path to round-off but, as
+        measured so far, slower than it (see DEVELOPERS.md), hence not the default.
 
     Returns
     -------
@@ -1212,8 +1216,8 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
 
     Notes
     -----
-    On lat–lon grids with uniform longitudes and numpy input the horizontal outputs come from one
-    compiled pass per level (:mod:`qgforce._forcing_engine`), equal to the numpy path to round-off.
+    Both methods use the stencils of :mod:`qgforce._stencils`; the vertical terms are the same
+    second pass over the levels in both.
     """
     temperature_wind = _check_choice(temperature_wind, _WINDS, "temperature_wind")
     frontogenesis_wind = _check_choice(frontogenesis_wind, _WINDS, "frontogenesis_wind")
@@ -1243,8 +1247,11 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
     from ._forcing_engine import compiled_context, resolve_dtype
 
     store = resolve_dtype(dtype)
-    compiled = compiled_context(ctx, temperature_wind, frontogenesis_wind, dtype=store, out=out, workers=workers)
-    h = horizontal(compiled) if compiled is not None else ctx.evaluate(horizontal)
+    if _check_choice(method, ("numpy", "compiled"), "method") == "compiled":
+        h = horizontal(compiled_context(ctx, temperature_wind, frontogenesis_wind, dtype=store, out=out,
+                                        workers=workers))
+    else:
+        h = ctx.evaluate(horizontal)
     v_north = h.pop("v_north") if "v_north" in h else h["v_geostrophic"]
     order = ("temperature_advection", "vorticity_advection", "differential_vorticity_advection",
              "thermal_advection_term", "q_vector_x", "q_vector_y", "q_vector_forcing", "qn_x", "qn_y", "qs_x",
