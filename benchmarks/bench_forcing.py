@@ -26,6 +26,12 @@ Figures (measured side by side in one run):
     (``dask.array.store``); threaded scheduler, 2 workers.  Full size (25, 721, 1440); quick
     (25, 91, 180).
 
+``forcing.float32_time_ratio``
+    As ``time_ratio`` with ``dtype="float32"`` (computed in float64, stored float32).
+``forcing.compiled_time_ratio``, ``forcing.compiled_float32_time_ratio``
+    The same two ratios for ``method="compiled"`` (the per-level numba pass), and
+    ``forcing.compiled_two_thread_speedup`` its 1-thread over 2-thread wall time.
+
 Run ``python benchmarks/bench_forcing.py [--quick]``; ``run(quick)`` returns the figures.
 """
 
@@ -161,6 +167,16 @@ def run(quick: bool = False) -> dict:
     gc.collect()
     touch = best_time(lambda: _touch_fresh_fields(shape, round(new_bytes / field_bytes)), repeat=2)
     gc.collect()
+    timed = {}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        forcing.forcing_terms(ds, f0_latitude=45.0, method="compiled", workers=1)  # compile or load the cache
+        for key, kw in (("float32", dict(dtype="float32")),
+                        ("compiled_1", dict(method="compiled", workers=1)),
+                        ("compiled_2", dict(method="compiled", workers=2)),
+                        ("compiled_float32", dict(method="compiled", workers=2, dtype="float32"))):
+            timed[key] = best_time(lambda: forcing.forcing_terms(ds, f0_latitude=45.0, **kw), repeat=2)
+            gc.collect()
     dask_seconds = _dask_run(DASK_QUICK if quick else FULL, DASK_STEPS)
     return {
         "forcing.shape": "x".join(map(str, shape)),
@@ -168,6 +184,10 @@ def run(quick: bool = False) -> dict:
         "forcing.baseline_seconds": base,
         "forcing.time_ratio": seconds / base,
         "forcing.cpu_time_ratio": cpu / base_cpu,
+        "forcing.float32_time_ratio": timed["float32"] / base,
+        "forcing.compiled_time_ratio": timed["compiled_2"] / base,
+        "forcing.compiled_float32_time_ratio": timed["compiled_float32"] / base,
+        "forcing.compiled_two_thread_speedup": timed["compiled_1"] / timed["compiled_2"],
         "forcing.outputs": n_out,
         "forcing.output_touch_ratio": touch / base,
         "forcing.peak_memory_ratio": peak / field_bytes,

@@ -553,6 +553,12 @@ class _Context:
 
     # ------------------------------------------------------------------ Q-vectors
     @cached_property
+    def thermal_advection_term_values(self) -> xr.DataArray:
+        """−(R_d/p) ∇²A_T with the geostrophic A_T [Pa-1 s-3] (unlabelled)."""
+        return _close_edges(laplacian(self.temperature_advection("geostrophic"), self.grid), self.grid) * (
+            -C.DRY_AIR_GAS_CONSTANT / pressure(self.T))
+
+    @cached_property
     def q_vectors(self):
         """(Q_x, Q_y, Q_nx, Q_ny, Q_sx, Q_sy) [m Pa-1 s-3] in one fused pass."""
         k = -C.DRY_AIR_GAS_CONSTANT / pressure(self.T)
@@ -681,10 +687,8 @@ def _build_differential_vorticity_advection(ctx: _Context, a_eta: xr.DataArray) 
 
 
 def _build_thermal_advection_term(ctx: _Context) -> xr.DataArray:
-    term = _close_edges(laplacian(ctx.temperature_advection("geostrophic"), ctx.grid), ctx.grid) * (
-        -C.DRY_AIR_GAS_CONSTANT / pressure(ctx.T))
     return _finish(
-        term, ctx.T, "thermal_advection_term", ctx.attrs(),
+        ctx.thermal_advection_term_values, ctx.T, "thermal_advection_term", ctx.attrs(),
         units="Pa-1 s-3", long_name="thermal advection term, -(R_d/p) laplacian(A_T)",
     )
 
@@ -738,6 +742,17 @@ def _build_frontogenesis(ctx: _Context, wind: str) -> dict:
     }
     return {name: _finish(da, like, name, attrs, units=units, long_name=long_name)
             for name, (da, units, long_name) in labels.items()}
+
+
+def _stored(da: xr.DataArray, dtype: np.dtype, target=None) -> xr.DataArray:
+    """``da`` in the storage dtype, in the caller's preallocated ``target`` when given (a no-op when written there)."""
+    if target is not None and da.chunks is None and not np.shares_memory(target, da.data):
+        if target.shape != da.shape or target.dtype != dtype:
+            raise QGForceError(f"out[{da.name!r}] must be a {dtype.name} array of shape {da.shape}; "
+                               f"found {target.dtype.name} {target.shape}")
+        np.copyto(target, da.data)
+        return da.copy(data=target)
+    return da if da.dtype == dtype else da.astype(dtype)
 
 
 def _dataset(parts: dict, attrs: dict, grid: Grid | None = None) -> xr.Dataset:
@@ -1242,7 +1257,8 @@ def _rhs(ctx: _Context, form: str) -> xr.Dataset:
 
 @_doc
 def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="full", coriolis=None, f0_latitude=None,
-                  equator_mask=C.DEFAULT_EQUATOR_MASK_DEGREES, smoothing=None, levels=None, grid=None):
+                  equator_mask=C.DEFAULT_EQUATOR_MASK_DEGREES, smoothing=None, levels=None, grid=None, dtype=None,
+                  out=None, workers=None, method="numpy"):
     """Every forcing diagnostic the levels allow, each intermediate computed once.
 
     Parameters
@@ -1256,6 +1272,19 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
     frontogenesis_wind : {"full", "geostrophic"}
         Wind of the frontogenesis diagnostics.
     {common}
+    dtype : {None, "float64", "float32"}, optional
+        Storage of the outputs (default float64); always computed in float64.
+    out : mapping of str to numpy.ndarray, optional
+        Preallocated arrays for any of the per-level outputs (C-contiguous, the shape of the input
+        fields with dims ``(..., level, y, x)``, the storage dtype); the compiled pass writes into
+        them, the numpy path copies its results in.
+    workers : int, optional
+        Threads of the compiled pass: a count, negative to back off from the cores (−1: all);
+        default ``$QGFORCE_NUM_THREADS`` or every core (at most 8).
+    method : {"numpy", "compiled"}
+        ``"compiled"``: one compiled pass per level (:mod:`qgforce._forcing_engine`; lat–lon grids
+        with uniform longitudes and numpy input), equal to the numpy path to round-off but, as
+        measured so far, slower than it (see DEVELOPERS.md), hence not the default.
 
     Returns
     -------
@@ -1278,6 +1307,11 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
         When the levels do not allow a term (it is then absent, listed in ``qgforce_omitted``).
         An explicit request for such a term (e.g. :func:`differential_vorticity_advection` on
         2 levels) remains an error.
+
+    Notes
+    -----
+    Both methods use the stencils of :mod:`qgforce._stencils`; the vertical terms are the same
+    second pass over the levels in both.
     """
     temperature_wind = _check_choice(temperature_wind, _WINDS, "temperature_wind")
     frontogenesis_wind = _check_choice(frontogenesis_wind, _WINDS, "frontogenesis_wind")
@@ -1312,7 +1346,14 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
             out["v_north"] = c.v_geostrophic_north
         return out
 
-    h = ctx.evaluate(horizontal)
+    from ._forcing_engine import compiled_context, resolve_dtype
+
+    store = resolve_dtype(dtype)
+    if _check_choice(method, ("numpy", "compiled"), "method") == "compiled":
+        h = horizontal(compiled_context(ctx, temperature_wind, frontogenesis_wind, dtype=store, out=out,
+                                        workers=workers))
+    else:
+        h = ctx.evaluate(horizontal)
     v_north = h.pop("v_north") if "v_north" in h else h["v_geostrophic"]
     order = ("temperature_advection", "vorticity_advection", "differential_vorticity_advection",
              "thermal_advection_term", "q_vector_x", "q_vector_y", "q_vector_forcing", "qn_x", "qn_y", "qs_x",
@@ -1332,7 +1373,7 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
             layer = _layer_vorticity_term(ctx, h["vorticity_advection"])
         else:
             omitted.append(f"layer_differential_vorticity_advection: needs 2 pressure levels; {found}")
-    parts = {k: ctx.select(h[k]) for k in order if k in h}
+    parts = {k: _stored(ctx.select(h[k]), store, (out or {}).get(k)) for k in order if k in h}
     parts["geopotential"] = ctx.select(ctx.phi.copy(deep=False).assign_attrs(qgforce_smoothing=ctx.smoothing))
     if layer is not None:
         parts["layer_differential_vorticity_advection"] = layer

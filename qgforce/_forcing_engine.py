@@ -1,0 +1,274 @@
+"""The compiled path of :func:`qgforce.forcing.forcing_terms`: stencils, allocation, threads.
+
+:func:`compiled_context` is the one dispatch point used by :mod:`qgforce.forcing`
+(``method="compiled"``).  On a lat–lon grid with uniform longitudes and at least 4 × 4 points,
+with numpy input, it computes every horizontal output with
+:func:`qgforce._forcing_kernels.latlon_level`, one level per kernel call, levels shared among
+threads (the kernel runs without the GIL), into preallocated arrays, and returns the call's
+context with those results in place of its cached intermediates: the labelling builders and the
+vertical terms (∂/∂p over the levels, a second pass) of :mod:`qgforce.forcing` then run
+unchanged.  Other input raises :class:`~qgforce.errors.OptionError` naming what is supported.
+
+All stencil weights and metric factors are computed here with the functions of
+:mod:`qgforce._stencils` and :class:`qgforce.Grid`, the same arrays the numpy path multiplies by,
+so the compiled results agree with it to round-off (``tests/test_forcing_kernels.py``).
+"""
+
+from __future__ import annotations
+
+import os
+from concurrent.futures import ThreadPoolExecutor
+
+import numpy as np
+import xarray as xr
+
+from . import _stencils as K
+from . import constants as C
+from .calculus import LEVEL, gradient
+from .errors import OptionError
+from .kinematics import _choice_attrs
+
+__all__ = ["compiled_context", "resolve_threads", "THREADS_ENV", "OUTPUT_NAMES"]
+
+#: Environment variable read when ``workers`` is not given (the variable of the column kernels).
+THREADS_ENV = "QGFORCE_NUM_THREADS"
+
+#: the per-level outputs of the kernel, in its order
+OUTPUT_NAMES = (
+    "temperature_advection", "vorticity_advection", "thermal_advection_term", "q_vector_x", "q_vector_y",
+    "qn_x", "qn_y", "qs_x", "qs_y", "q_vector_forcing", "qn_forcing", "qs_forcing", "frontogenesis",
+    "frontogenesis_divergence", "frontogenesis_deformation", "isentrope_dilatation_angle",
+    "potential_temperature_gradient", "u_geostrophic", "v_geostrophic",
+)
+#: outputs kept in float64 whatever ``dtype``: the vertical pass differentiates them
+_FLOAT64_ALWAYS = ("vorticity_advection", "v_geostrophic")
+_DTYPES = ("float64", "float32")
+
+
+def resolve_threads(workers=None) -> int:
+    """Threads of one compiled call.
+
+    ``workers``: a positive count; a negative count backs off from the cores this process may use
+    (−1: all of them); ``None``: ``$QGFORCE_NUM_THREADS``, else every core (at most 8).  Zero or a
+    non-integer raises :class:`~qgforce.errors.OptionError`.
+    """
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - not on Linux
+        cores = os.cpu_count() or 1
+    source = "workers"
+    if workers is None:
+        value = os.environ.get(THREADS_ENV, "").strip()
+        if not value:
+            return max(1, min(cores, 8))
+        source, workers = f"${THREADS_ENV}", value
+    try:
+        n = int(workers)
+        if isinstance(workers, float) and n != workers:
+            raise ValueError
+    except (TypeError, ValueError):
+        raise OptionError(f"{source} must be a whole number of threads; found {workers!r}") from None
+    if n == 0:
+        raise OptionError(f"{source} must not be 0: give a thread count ≥ 1, or a negative count to back off "
+                          f"from the {cores} cores (-1: all of them)")
+    return max(1, n if n > 0 else cores + 1 + n)
+
+
+def resolve_dtype(dtype) -> np.dtype:
+    """The storage dtype of the outputs: float64 (default) or float32 (computed in float64)."""
+    if dtype is None:
+        return np.dtype(np.float64)
+    try:
+        d = np.dtype(dtype)
+    except TypeError:
+        d = None
+    if d is None or d.name not in _DTYPES:
+        raise OptionError(f"dtype must be one of {', '.join(_DTYPES)} (or None for float64); found {dtype!r}")
+    return d
+
+
+def _axis(coord: np.ndarray, periodic: bool):
+    """(idx (n, 3), w (n, 3), mode (n,), (1/(2h),)) of stencils.first_derivative along one axis."""
+    c = np.asarray(coord, dtype=np.float64)
+    n = c.size
+    idx = np.empty((n, 3), dtype=np.int64)
+    w = np.zeros((n, 3))
+    mode = np.empty(n, dtype=np.int64)
+    k = np.arange(n)
+    idx[:, 0], idx[:, 1], idx[:, 2] = k - 1, k, k + 1
+    uniform = K.is_uniform(c)
+    inv2h = 1.0 / (2.0 * (c[1] - c[0])) if uniform else 0.0
+    if uniform:
+        mode[:] = 0
+    else:
+        hm = c[1:-1] - c[:-2]
+        hp = c[2:] - c[1:-1]
+        w[1:-1, 0] = -hp / (hm * (hm + hp))
+        w[1:-1, 1] = (hp - hm) / (hm * hp)
+        w[1:-1, 2] = hm / (hp * (hm + hp))
+        mode[:] = 1
+    if periodic:
+        idx[0, 0], idx[-1, 2] = n - 1, 0
+    else:
+        lo, hi = K._edge_weights(c)
+        idx[0], w[0], mode[0] = (0, 1, 2), lo, 2
+        idx[-1], w[-1], mode[-1] = (n - 3, n - 2, n - 1), hi, 2
+    return idx, w, mode, np.array([inv2h])
+
+
+def _row(a, ny: int) -> np.ndarray:
+    return np.ascontiguousarray(np.broadcast_to(np.asarray(a, dtype=np.float64), (ny, 1))[:, 0])
+
+
+def _geometry(grid, cor):
+    """The stencils and row metrics of a lat–lon grid, computed as :mod:`qgforce._stencils` does."""
+    ny, nx = grid.shape
+    eta = np.asarray(grid.eta, dtype=np.float64)
+    hx, hy = np.asarray(grid.hx, dtype=np.float64), np.asarray(grid.hy, dtype=np.float64)
+    ihx = K._safe_inverse(hx)
+    ihy = 1.0 / hy
+    mx = K.first_derivative(np.broadcast_to(hx, (ny, hx.shape[-1])), eta, -2) * ihx * ihy
+    inv_area = K._safe_inverse(hx * hy)
+    with np.errstate(divide="ignore"):
+        inv_f = np.where(cor.mask, np.nan, 1.0 / cor.f)
+    M = (np.ones(ny), _row(ihx, ny), _row(ihy, ny), _row(mx, ny), _row(hx, ny), _row(hy, ny), _row(inv_area, ny),
+         _row(inv_f[:, :1], ny), _row(cor.mask[:, :1].astype(np.float64), ny))
+    h = grid.xi[1] - grid.xi[0]
+    xfac = (hy * K._safe_inverse(hx) * inv_area) / (h * h)
+    mer = K._meridional_operator(eta, _row(hx, ny), _row(hy, ny), _row(inv_area, ny))
+    L = (_row(xfac, ny), mer.indptr.astype(np.int64), mer.indices.astype(np.int64), mer.data.astype(np.float64))
+    poles = [p % ny for p in grid.pole_rows]
+    j1s = [1 if j == 0 else ny - 2 for j in poles]
+    j2s = [2 if j == 0 else ny - 3 for j in poles]
+    P = (np.array(poles, dtype=np.int64), np.array(j1s, dtype=np.int64), np.array(j2s, dtype=np.int64),
+         np.array([(eta[j] - eta[a]) / (eta[a] - eta[b]) for j, a, b in zip(poles, j1s, j2s)], dtype=np.float64))
+    phic = np.array([0.5 * (eta[j] + eta[a]) for j, a in zip(poles, j1s)], dtype=np.float64)
+    radius = float(hy.ravel()[0])
+    caps = (P[0], P[1], np.cos(phic), np.array([abs(eta[a] - eta[j]) for j, a in zip(poles, j1s)], dtype=np.float64),
+            np.array([2 * np.pi * radius**2 * (1 - abs(np.sin(x))) for x in phic], dtype=np.float64))
+    X = _axis(grid.xi, grid.periodic_x)
+    Y = _axis(eta, False)
+    return X, Y, M, L, P, caps
+
+
+def _applies(ctx) -> bool:
+    g = ctx.grid
+    return (g.kind == "latlon" and min(g.shape) >= 4 and K.is_uniform(np.asarray(g.xi))
+            and all(da.chunks is None for da in ctx.fields.values())
+            and tuple(ctx.T.dims[-2:]) == tuple(g.dims))
+
+
+def _slabs(da: xr.DataArray, dims) -> np.ndarray:
+    """(n_slab, ny, nx) float64 C-contiguous view (or copy) of a field in the dims of the output."""
+    a = np.ascontiguousarray(da.transpose(*dims).values, dtype=np.float64)
+    return a.reshape((-1,) + a.shape[-2:])
+
+
+def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=None, out=None, workers=None):
+    """Fill ``ctx`` with the compiled horizontal outputs and return it.
+
+    Parameters
+    ----------
+    ctx : qgforce.forcing._Context
+        The prepared call (input fields selected and smoothed, Coriolis resolved).
+    temperature_wind, frontogenesis_wind : {"geostrophic", "full"}
+    dtype : {None, "float64", "float32"}
+        Storage of the outputs (always computed in float64).
+    out : mapping of name -> ndarray, optional
+        Preallocated outputs (shape of the input fields, dims ``(..., level, y, x)``, of the
+        storage dtype, C-contiguous) for any of :data:`OUTPUT_NAMES`.
+    workers : int, optional
+        Threads (see :func:`resolve_threads`).
+
+    Returns
+    -------
+    qgforce.forcing._Context
+
+    Raises
+    ------
+    OptionError
+        For a projected grid, non-uniform longitudes, fewer than 4 × 4 points or dask input.
+    """
+    store = resolve_dtype(dtype)
+    threads = resolve_threads(workers)
+    if not _applies(ctx):
+        raise OptionError(
+            f"method='compiled' runs on lat-lon grids with uniform longitudes, at least 4 x 4 points and "
+            f"in-memory (numpy) input; this call has a {ctx.grid.kind} grid of {ctx.grid.shape[0]} x "
+            f"{ctx.grid.shape[1]} points{' and dask input' if any(da.chunks is not None for da in ctx.fields.values()) else ''}. "
+            f"Use method='numpy' (the default), which runs everywhere.")
+    from ._forcing_kernels import latlon_level
+
+    grid, cor = ctx.grid, ctx.cor
+    ref = ctx.T
+    dims = ref.dims
+    shape = ref.shape
+    ny, nx = grid.shape
+    full_t, full_f = temperature_wind == "full", frontogenesis_wind == "full"
+    T, PHI = _slabs(ctx.T, dims), _slabs(ctx.phi, dims)
+    if full_t or full_f:
+        u, v = ctx.full
+        U, V = _slabs(u, dims), _slabs(v, dims)
+    else:
+        U = V = T
+    n = T.shape[0]
+    p = np.broadcast_to(np.asarray(ref[LEVEL].values, dtype=np.float64)[
+        (None,) * (dims.index(LEVEL)) + (slice(None),)], shape[:-2]).reshape(-1)
+    k_rp = -C.DRY_AIR_GAS_CONSTANT / p
+    c_theta = (C.REFERENCE_PRESSURE / p) ** C.KAPPA
+    fx, fy = (np.ascontiguousarray(np.broadcast_to(g.values, (ny, nx)), dtype=np.float64)
+              for g in gradient(ctx.coriolis_local, grid))
+    X, Y, M, L, P, caps = _geometry(grid, cor)
+    out = dict(out or {})
+    arrays = {}
+    for name in OUTPUT_NAMES:
+        want = np.dtype(np.float64) if name in _FLOAT64_ALWAYS else store
+        given = out.get(name)
+        if given is not None and name not in _FLOAT64_ALWAYS:
+            if given.shape != shape or given.dtype != store or not given.flags.c_contiguous:
+                raise OptionError(f"out[{name!r}] must be a C-contiguous {store.name} array of shape {shape}; "
+                                  f"found {given.dtype.name} {given.shape}")
+            arrays[name] = given
+        else:
+            arrays[name] = np.empty(shape, dtype=want)
+    flat = {k: a.reshape((n, ny, nx)) for k, a in arrays.items()}
+    direct = store == np.float64
+    threads = max(1, min(threads, n))
+
+    def work(first: int, last: int) -> None:
+        zeta, at = np.empty((ny, nx)), np.empty((ny, nx))
+        spare = None if direct else np.empty((5, ny, nx))  # float64 work arrays of float32 outputs
+        for s in range(first, last):
+            o = tuple(flat[k][s] for k in OUTPUT_NAMES)
+            ug, qx, qy, qnx, qny = (o[17], o[3], o[4], o[5], o[6]) if direct else spare
+            latlon_level(T[s], PHI[s], U[s], V[s], fx, fy, full_t, full_f, cor.kind == "local", grid.periodic_x,
+                         X, Y, M, L, P, caps, float(k_rp[s]), float(c_theta[s]), float(cor.f0),
+                         ug, o[18], zeta, at, qx, qy, qnx, qny, o)
+
+    bounds = np.linspace(0, n, threads + 1).astype(int)
+    if threads == 1:
+        work(0, n)
+    else:
+        with ThreadPoolExecutor(threads) as pool:
+            list(pool.map(work, bounds[:-1], bounds[1:]))
+    das = {k: xr.DataArray(a, dims=dims, coords=ref.coords) for k, a in arrays.items()}
+    ctx._temperature_advection[temperature_wind] = das["temperature_advection"]
+    # the labels of kinematics.geostrophic_wind on lat-lon grids
+    wind_attrs = {"units": "m s-1", **_choice_attrs(cor)}
+    das["u_geostrophic"].attrs.update(long_name="eastward geostrophic wind",
+                                      standard_name="geostrophic_eastward_wind", **wind_attrs)
+    das["v_geostrophic"].attrs.update(long_name="northward geostrophic wind",
+                                      standard_name="geostrophic_northward_wind", **wind_attrs)
+    from .forcing import _close_edges  # the composite terms' open-edge closure, as on the numpy path
+
+    ctx.__dict__.update(
+        geostrophic=(das["u_geostrophic"], das["v_geostrophic"]),
+        vorticity_advection=_close_edges(das["vorticity_advection"], grid),
+        thermal_advection_term_values=_close_edges(das["thermal_advection_term"], grid),
+        q_vectors=tuple(das[k] for k in OUTPUT_NAMES[3:9]),
+        q_forcings=tuple(_close_edges(das[k], grid) for k in OUTPUT_NAMES[9:12]),
+    )
+    front = tuple(das[k] for k in OUTPUT_NAMES[12:17])
+    ctx.frontogenesis = lambda kind: front
+    ctx.slabs = None
+    return ctx

@@ -1,0 +1,148 @@
+"""The compiled forcing pass (``forcing_terms(method="compiled")``) against the numpy path.
+
+The reference is the numpy path of :func:`qgforce.forcing.forcing_terms` (itself checked against
+analytic solutions in ``tests/test_forcing.py``): both use the stencils of ``_stencils.py``, so
+every output must agree to round-off, measured as max |a − b| / max |b| ≤ 1e-12 per field, with
+NaN in the same places.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from qgforce import cases, forcing, open_dataset
+from qgforce.errors import OptionError
+from qgforce.scenario import build_demo_dataset
+
+
+def _wave_dataset(lat, lon, nz=5):
+    """Invented smooth fields (a zonal jet and a tilted wave) on (time, level, latitude, longitude)."""
+    p = np.linspace(100000.0, 30000.0, nz)
+    phi = np.deg2rad(np.asarray(lat))[None, :, None]
+    lam = np.deg2rad(np.asarray(lon))[None, None, :]
+    s = (1.0 - p / 100000.0)[:, None, None]
+    wave = np.sin(5 * lam + 0.7 * s + 2 * phi) * np.cos(phi) ** 2
+    geop = 287.0 * 270.0 * np.log(100000.0 / p)[:, None, None] - 6.0e5 * (1 + s) * np.sin(phi) ** 2 + 900.0 * wave
+    temp = 288.0 - 55.0 * s - 25.0 * np.sin(phi) ** 2 + 2.5 * np.cos(5 * lam - s + phi) * np.cos(phi)
+    u = 12.0 + 25.0 * s * np.cos(phi) ** 2 + 4.0 * wave
+    v = 6.0 * np.cos(5 * lam + s) * np.cos(phi) ** 2 + 0.0 * s
+    shape = (nz, len(lat), len(lon))
+    data = {n: (("time", "level", "latitude", "longitude"), np.broadcast_to(a, shape)[None].astype(np.float64),
+                {"units": un})
+            for n, a, un in (("temperature", temp, "K"), ("geopotential", geop, "m2 s-2"), ("u", u, "m s-1"),
+                             ("v", v, "m s-1"))}
+    return xr.Dataset(data, coords={"time": [0], "level": p, "latitude": np.asarray(lat, float),
+                                    "longitude": np.asarray(lon, float)})
+
+
+def _compare(ds, tol=1e-12, **kw):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ref = forcing.forcing_terms(ds, **kw)
+        new = forcing.forcing_terms(ds, method="compiled", **kw)
+    assert list(new.data_vars) == list(ref.data_vars)
+    for name in ref.data_vars:
+        a, b = new[name].values.astype(np.float64), ref[name].values
+        assert new[name].attrs == ref[name].attrs, name
+        assert new[name].dims == ref[name].dims, name
+        np.testing.assert_array_equal(np.isnan(a), np.isnan(b), err_msg=name)
+        scale = np.nanmax(np.abs(b))
+        if scale > 0:
+            assert np.nanmax(np.abs(a - b)) <= tol * scale, (name, np.nanmax(np.abs(a - b)) / scale)
+    assert new.attrs == ref.attrs
+    return new, ref
+
+
+GLOBAL_POLES = dict(lat=np.linspace(-90.0, 90.0, 37), lon=np.arange(72) * 5.0)
+DATELINE = dict(lat=np.linspace(20.0, 70.0, 21), lon=np.arange(160.0, 201.0, 2.5))
+
+
+@pytest.mark.parametrize("coriolis", ["f0", "local"])
+@pytest.mark.parametrize("winds", [("geostrophic", "full"), ("full", "geostrophic")])
+def test_global_grid_with_poles(coriolis, winds):
+    _compare(_wave_dataset(**GLOBAL_POLES), coriolis=coriolis, temperature_wind=winds[0],
+             frontogenesis_wind=winds[1], f0_latitude=45.0)
+
+
+@pytest.mark.parametrize("coriolis", ["f0", "local"])
+def test_dateline_region(coriolis):
+    ds = _wave_dataset(**DATELINE)
+    _compare(ds, coriolis=coriolis, levels=[825, 475])
+
+
+def test_demo_scenario():
+    ds = open_dataset(build_demo_dataset(resolution=2.5)).isel(time=slice(0, 2)).load()
+    _compare(ds)
+
+
+def test_non_uniform_latitudes():
+    lat = np.sort(np.concatenate([np.linspace(25.0, 65.0, 15), [31.3, 47.9, 58.2]]))
+    _compare(_wave_dataset(lat, np.arange(0.0, 60.0, 3.0)))
+
+
+def test_float32_storage_and_out():
+    ds = _wave_dataset(**DATELINE)
+    shape = ds.temperature.shape
+    target = np.empty(shape, dtype=np.float32)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ref = forcing.forcing_terms(ds)
+        new = forcing.forcing_terms(ds, method="compiled", dtype="float32", out={"frontogenesis": target},
+                                    workers=2)
+        old = forcing.forcing_terms(ds, dtype="float32")
+    assert np.shares_memory(new.frontogenesis.values, target)
+    for name in ref.data_vars:
+        if name == "geopotential":
+            continue
+        assert new[name].dtype == np.float32 and old[name].dtype == np.float32, name
+        # float32 storage of the float64 values: equal to them rounded to float32, except where the
+        # open-edge closure (forcing._close_edges) extrapolates the stored float32 rows, whose
+        # weights (|w| summing to 31) carry the float32 rounding, twice at the corners (rows, then
+        # columns): within 31**2 float32 half-ulps of the maximum
+        expect = ref[name].values.astype(np.float32)
+        if name in ("vorticity_advection", "thermal_advection_term", "q_vector_forcing", "qn_forcing",
+                    "qs_forcing"):
+            n = forcing.EDGE_CLOSURE_ROWS
+            inner = (..., slice(n, -n), slice(n, -n))
+            np.testing.assert_array_equal(new[name].values[inner], expect[inner], err_msg=name)
+            bound = 31**2 * 2.0 ** -24 * np.abs(ref[name].values).max()
+            np.testing.assert_allclose(new[name].values, ref[name].values, rtol=0, atol=bound, err_msg=name)
+        else:
+            np.testing.assert_array_equal(new[name].values, expect, err_msg=name)
+
+
+def test_workers_give_the_same_numbers():
+    ds = _wave_dataset(**GLOBAL_POLES)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        one = forcing.forcing_terms(ds, method="compiled", workers=1, f0_latitude=45.0)
+        two = forcing.forcing_terms(ds, method="compiled", workers=-1, f0_latitude=45.0)
+    xr.testing.assert_identical(one, two)
+
+
+def test_bad_options():
+    ds = _wave_dataset(**DATELINE)
+    with pytest.raises(OptionError, match="workers must not be 0"):
+        forcing.forcing_terms(ds, method="compiled", workers=0)
+    with pytest.raises(OptionError, match="dtype must be one of float64, float32"):
+        forcing.forcing_terms(ds, dtype="int8")
+    with pytest.raises(forcing.QGForceError, match="method must be one of"):
+        forcing.forcing_terms(ds, method="fast")
+    with pytest.raises(OptionError, match="must be a C-contiguous float64 array"):
+        forcing.forcing_terms(ds, method="compiled", out={"frontogenesis": np.empty(3)})
+
+
+def test_projected_grid_asks_for_the_numpy_method():
+    case = cases.get_case("deformation_q_vector")
+    with pytest.raises(OptionError, match="method='numpy'"):
+        forcing.forcing_terms(case.ds, method="compiled")
+
+
+def test_dask_input_asks_for_the_numpy_method():
+    ds = _wave_dataset(**DATELINE).chunk({"level": 2})
+    with pytest.raises(OptionError, match="dask input"):
+        forcing.forcing_terms(ds, method="compiled")
