@@ -513,6 +513,16 @@ def _earth_relative(u, v):
     return np.asarray(ue.values, float), np.asarray(vn.values, float)
 
 
+def _arrow_scale(ref: float, shape) -> dict:
+    """Quiver scaling that draws the reference length as 0.7 of the spacing between arrows.
+
+    With about 90 % of the arrows no longer than the reference (:func:`_reference_length`), the
+    arrows rarely overlap and the shading stays readable between them.
+    """
+    spacing = 1.0 / max(shape[-1], 1)  # in axes widths
+    return {"scale_units": "width", "scale": ref / (0.7 * spacing)}
+
+
 def _draw_vectors(ax, u, v, stride, geo: bool):
     u = _map_field_2d(u, "vectors")
     v = _map_field_2d(v, "vectors")
@@ -540,13 +550,14 @@ def _draw_vectors(ax, u, v, stride, geo: bool):
         norm = np.hypot(ut, vt)
         scale = np.divide(speed, norm, out=np.zeros_like(speed), where=norm > 0)
         xy = ax.projection.transform_points(pc, lon2, lat2)
+        ref = _reference_length(speed)
         q = ax.quiver(xy[..., 0], xy[..., 1], ut * scale, vt * scale, angles="uv", transform=ax.projection,
-                      width=0.0018, color="0.1")
+                      width=0.0018, color="0.1", **_arrow_scale(ref, lon2.shape))
     else:
-        q = ax.quiver(lon2, lat2, ue, vn, angles="uv", width=0.0018, color="0.1")
-    ref = _reference_length(speed)
+        ref = _reference_length(speed)
+        q = ax.quiver(lon2, lat2, ue, vn, angles="uv", width=0.0018, color="0.1", **_arrow_scale(ref, lon2.shape))
     units = _readable_units(u.attrs.get("units"))
-    key = ax.quiverkey(q, X=0.04, Y=0.04, U=ref, label=f"{_round_number(ref)} {units}".strip(), labelpos="E",
+    key = ax.quiverkey(q, X=0.1, Y=0.07, U=ref, label=f"{_round_number(ref)} {units}".strip(), labelpos="E",
                        coordinates="axes", fontproperties={"size": 7}, zorder=5)
     key.text.set_bbox({"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.5})
     return q, key
@@ -625,7 +636,13 @@ def _fill_colour_bar(fig, mesh, ax, field, fstyle, lv, ext):
     """Vertical colour bar beside its panel, ticks on the levels, labelled ``name [display units]``."""
     from matplotlib.ticker import FuncFormatter
 
-    ticks = lv if lv.size <= 13 else lv[:: math.ceil(lv.size / 12)]
+    from matplotlib.ticker import MaxNLocator
+
+    if fstyle is None:  # levels from the data: round ticks within them
+        ticks = MaxNLocator(nbins=8).tick_values(lv[0], lv[-1])
+        ticks = ticks[(ticks >= lv[0] - 1e-12 * abs(lv[0])) & (ticks <= lv[-1] + 1e-12 * abs(lv[-1]))]
+    else:
+        ticks = lv if lv.size <= 13 else lv[:: math.ceil(lv.size / 12)]
     cbar = fig.colorbar(mesh, ax=ax, orientation="vertical", fraction=0.046, pad=0.03, shrink=0.92, extend=ext,
                         ticks=ticks)
     k = 0 if fstyle is not None else _tick_exponent(float(lv[0]), float(lv[-1]))
@@ -633,6 +650,7 @@ def _fill_colour_bar(fig, mesh, ax, field, fstyle, lv, ext):
         cbar.formatter = FuncFormatter(lambda v, _pos=None: f"{v / 10.0**k:.3g}")
         cbar.update_ticks()
     units = _readable_units(fstyle.units if fstyle is not None else field.attrs.get("units"))
+    units = re.sub(r"^10(-?\d+)(?= )", lambda m: "10" + m.group(1).translate(_SUPERSCRIPT), units)
     if k:
         units = f"10{str(k).translate(_SUPERSCRIPT)} {units}".strip()
     name = _display_name(field) or "field"
@@ -666,6 +684,9 @@ def _draw_map(ax, field, *, contours, contour_interval, vectors, vector_stride, 
     fstyle = MS.field_style(field.name, field.attrs.get("units"))
     values = np.asarray(field.values, dtype=np.float64) * (fstyle.scale if fstyle is not None else 1.0)
     lv, signed = _fill_levels(values, fstyle, levels, interval, robust_percentile, symmetric)
+    horizon = field.attrs.get("qgforce_lifting_horizon_hours")
+    if levels is None and horizon is not None and (lv <= float(horizon)).sum() >= 2:
+        lv = lv[lv <= float(horizon)]  # no colour for times the lifting never reached
     if cmap is None:
         cmap = fstyle.cmap if fstyle is not None else (_SIGNED_CMAP if signed else _UNSIGNED_CMAP)
     x, y, tkw = _native_coords(ax, lon, lat, geo)
