@@ -118,7 +118,8 @@ def geography_lines(layer: str, extent=(-180.0, 180.0, -90.0, 90.0), resolution:
     lines = _load(layer if layer == "states" else f"{layer}_{resolution}")
     bounds = _bounds(layer if layer == "states" else f"{layer}_{resolution}")
     out = []
-    for shift in (-360.0, 0.0, 360.0):
+    shifts = (0.0,) if lon1 - lon0 >= 360.0 else (-360.0, 0.0, 360.0)  # a whole-globe box: each line once
+    for shift in shifts:
         hit = ((bounds[:, 0] + shift <= lon1) & (bounds[:, 1] + shift >= lon0)
                & (bounds[:, 2] <= lat1) & (bounds[:, 3] >= lat0))
         out.extend(lines[i] + (shift, 0.0) if shift else lines[i] for i in np.nonzero(hit)[0])
