@@ -13,7 +13,7 @@ and "QG forcing terms"), so the ω colormap is reversed.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -48,6 +48,8 @@ class FieldStyle:
     cmap : str
     levels : tuple of float or None
         Explicit levels in display units (override interval and count).
+    source_units : str or None
+        The SI units the scale applies to.
     """
 
     units: str
@@ -57,6 +59,7 @@ class FieldStyle:
     signed: bool = True
     cmap: str = ASCENT_HIGH_CMAP
     levels: tuple | None = None
+    source_units: str | None = None
 
     def contour_levels(self) -> np.ndarray | None:
         """Fixed levels in display units, or None when they are to follow the data."""
@@ -68,17 +71,20 @@ class FieldStyle:
         return np.concatenate([-k[::-1], k]) if self.signed else np.concatenate([[0.0], k])
 
 
-_FORCING = FieldStyle(units="10-18 Pa-1 s-3", scale=1e18, interval=2.0, count=6)
-_FRONTOGENESIS = FieldStyle(units="K (100 km)-1 (3 h)-1", scale=1.08e9, interval=0.1, count=10)
-_OMEGA = FieldStyle(units="Pa s-1", scale=1.0, interval=0.05, count=8, cmap=ASCENT_LOW_CMAP)
-_W = FieldStyle(units="cm s-1", scale=100.0, interval=1.0, count=8)
-_HOURS = FieldStyle(units="h", signed=False, cmap=SEQUENTIAL_CMAP, levels=(0, 1, 2, 3, 6, 9, 12, 18, 24, 36, 48))
+_FORCING = FieldStyle(units="10-18 Pa-1 s-3", scale=1e18, interval=2.0, count=6, source_units="Pa-1 s-3")
+# K (100 km)-1 (3 h)-1 = 1e5 m × 10800 s per K m-1 s-1 (science.md, 2-D frontogenesis)
+_FRONTOGENESIS = FieldStyle(units="K (100 km)-1 (3 h)-1", scale=1.08e9, interval=0.1, count=10,
+                            source_units="K m-1 s-1")
+_OMEGA = FieldStyle(units="Pa s-1", scale=1.0, interval=0.05, count=8, cmap=ASCENT_LOW_CMAP, source_units="Pa s-1")
+_W = FieldStyle(units="cm s-1", scale=100.0, interval=1.0, count=8, source_units="m s-1")
+_HOURS = FieldStyle(units="h", signed=False, cmap=SEQUENTIAL_CMAP, levels=(0, 1, 2, 3, 6, 9, 12, 18, 24, 36, 48),
+                    source_units="h")
 
 #: Per-field display defaults.  Forcing terms share one unit and interval so panels compare directly.
 #: Intervals are chosen for synoptic magnitudes (science.md, "Units and magnitudes"; common practice).
 FIELD_STYLES = {
-    "temperature_advection": FieldStyle(units="K h-1", scale=3600.0, interval=0.1, count=6),
-    "vorticity_advection": FieldStyle(units="10-9 s-2", scale=1e9, interval=0.5, count=6),
+    "temperature_advection": FieldStyle(units="K h-1", scale=3600.0, interval=0.1, count=6, source_units="K s-1"),
+    "vorticity_advection": FieldStyle(units="10-9 s-2", scale=1e9, interval=0.5, count=6, source_units="s-2"),
     "differential_vorticity_advection": _FORCING,
     "thermal_advection_term": _FORCING,
     "q_vector_forcing": _FORCING,
@@ -96,19 +102,22 @@ FIELD_STYLES = {
 def field_style(name: str | None, units: str | None = None) -> FieldStyle | None:
     """The style of a field by its variable name (``omega_*`` and ``w_*`` by prefix), or None.
 
-    A style is only returned when the field's ``units`` are the SI units the scale is written for
-    (``Pa s-1`` for ω, ``m s-1`` for w, anything for the named fields), so a field already in other
-    units is never scaled twice.
+    With ``units`` equal to the style's SI ``source_units`` (or None) the style is returned as it is;
+    with ``units`` equal to its display units, with scale 1 (the field was converted already); with
+    any other units, None: a field is never scaled twice or scaled from the wrong unit.
     """
     if name is None:
         return None
     name = str(name)
-    if name in FIELD_STYLES:
-        return FIELD_STYLES[name]
-    if (name == "omega" or name.startswith("omega_")) and units in (None, "Pa s-1"):
-        return _OMEGA
-    if (name == "w" or name.startswith("w_")) and units in (None, "m s-1"):
-        return _W
+    style = FIELD_STYLES.get(name)
+    if style is None and (name == "omega" or name.startswith("omega_")):
+        style = _OMEGA
+    if style is None and (name == "w" or name.startswith("w_")):
+        style = _W
+    if style is None or units is None or units == style.source_units:
+        return style
+    if units == style.units:
+        return replace(style, scale=1.0)
     return None
 
 

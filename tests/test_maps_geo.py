@@ -159,6 +159,9 @@ def test_frontogenesis_display_factor():
     st = MS.field_style("frontogenesis", "K m-1 s-1")
     assert st.scale == pytest.approx(1e5 * 3 * 3600)
     assert MS.field_style("omega_total", "hPa h-1") is None  # another unit is never rescaled
+    # a field converted already (e.g. by qgforce.forcing.to_display_units) is not scaled again
+    assert MS.field_style("frontogenesis", "K (100 km)-1 (3 h)-1").scale == 1.0
+    assert MS.field_style("temperature_advection", "K d-1") is None
 
 
 def test_explicit_levels_interval_and_errors():
