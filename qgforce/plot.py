@@ -641,8 +641,14 @@ def _fill_colour_bar(fig, mesh, ax, field, fstyle, lv, ext):
     if fstyle is None:  # levels from the data: round ticks within them
         ticks = MaxNLocator(nbins=8).tick_values(lv[0], lv[-1])
         ticks = ticks[(ticks >= lv[0] - 1e-12 * abs(lv[0])) & (ticks <= lv[-1] + 1e-12 * abs(lv[-1]))]
+    elif lv.size <= 13:
+        ticks = lv
+    elif lv[0] < 0.0 < lv[-1] and np.allclose(lv, -lv[::-1]):  # symmetric bands: ticks mirrored about zero
+        step = math.ceil(lv.size / 12)
+        upper = lv[lv > 0][step - 1::step]
+        ticks = np.concatenate([-upper[::-1], upper])
     else:
-        ticks = lv if lv.size <= 13 else lv[:: math.ceil(lv.size / 12)]
+        ticks = lv[:: math.ceil(lv.size / 12)]
     cbar = fig.colorbar(mesh, ax=ax, orientation="vertical", fraction=0.046, pad=0.03, shrink=0.92, extend=ext,
                         ticks=ticks)
     k = 0 if fstyle is not None else _tick_exponent(float(lv[0]), float(lv[-1]))
