@@ -48,7 +48,9 @@ import numpy as np
 
 from . import constants as C
 from . import sections
+from . import _map_style as MS
 from . import variables as _variables
+from .geography import draw_geography
 from ._unitstr import parse as _parse_units
 from .errors import GridError, InputDataError, MissingVariableError, QGForceError
 
@@ -126,8 +128,13 @@ class PlotArtists:
     contour_labels : list of matplotlib.text.Text or None
     quiver : matplotlib.quiver.Quiver or None
     quiverkey : matplotlib.quiver.QuiverKey or None
-    coastlines : cartopy.mpl.feature_artist.FeatureArtist or None
-        None when cartopy is not used or the coastline data are not available offline.
+    coastlines : matplotlib artist or None
+        The coastline drawn from the shipped data (a cartopy ``FeatureArtist`` on a GeoAxes, a
+        ``LineCollection`` on plain axes); None only with ``coastlines=False`` or outside maps.
+    geography : dict or None
+        Every geography layer drawn (``coastline``, ``borders``, ``states``) → its artist.
+    legend : matplotlib.legend.Legend or None
+        The in-panel legend (height contours, blank cells).
     section : xarray.DataArray or None
         For :func:`cross_section`, the sampled field that was drawn.
     """
@@ -141,6 +148,8 @@ class PlotArtists:
     quiverkey: Any = None
     coastlines: Any = None
     section: Any = None
+    geography: Any = None
+    legend: Any = None
 
 
 # ---------------------------------------------------------------------- lazy imports
@@ -238,13 +247,21 @@ def _scalar_suffix(da) -> str:
     parts = []
     if "level" in da.coords and da["level"].ndim == 0:
         parts.append(f"{float(da['level']) / 100.0:g} hPa")
-    if "time" in da.coords and da["time"].ndim == 0:
-        parts.append(_format_time(da["time"].values))
+    when = MS.time_text(da, _format_time)
+    if when:
+        parts.append(when)
     return ", ".join(parts)
 
 
+def _display_name(da) -> str:
+    """One name per field on every figure: the panel title of the field when it has one, else its long name."""
+    if da.name is not None and _variables.find(str(da.name)) is not None:
+        return _variables.panel_title(str(da.name))
+    return da.attrs.get("long_name") or (str(da.name).replace("_", " ") if da.name is not None else "")
+
+
 def _default_title(da) -> str:
-    name = da.attrs.get("long_name") or (str(da.name).replace("_", " ") if da.name is not None else "")
+    name = _display_name(da)
     suffix = _scalar_suffix(da)
     return f"{name} — {suffix}" if name and suffix else (name or suffix)
 
@@ -394,29 +411,6 @@ def _map_axes(fig, position: tuple, lon, lat, projection):
     return fig.add_subplot(*position, projection=projection)
 
 
-def _coastline_resolution(preference: tuple[str, ...]) -> str | None:
-    """The first Natural Earth coastline resolution already on disk, or None (never downloads).
-
-    Looks where cartopy itself would (its configured downloader's ``pre_downloaded_path`` then
-    ``target_path``, i.e. ``cartopy.config['pre_existing_data_dir']`` and ``['data_dir']``).
-    """
-    try:
-        from cartopy import config
-        from cartopy.io import Downloader
-    except (ImportError, OSError):
-        return None
-    for res in preference:
-        fmt = {"config": config, "category": "physical", "name": "coastline", "resolution": res}
-        try:
-            dl = Downloader.from_config(("shapefiles", "natural_earth", res, "physical", "coastline"))
-            candidates = (dl.pre_downloaded_path(fmt), dl.target_path(fmt))
-        except (ValueError, KeyError, AttributeError, TypeError):  # a downloader we cannot query: no risk
-            return None
-        if any(p is not None and Path(p).exists() for p in candidates):
-            return res
-    return None
-
-
 def _degree_formatter(axis: str):
     from matplotlib.ticker import FuncFormatter
 
@@ -520,6 +514,16 @@ def _earth_relative(u, v):
     return np.asarray(ue.values, float), np.asarray(vn.values, float)
 
 
+def _arrow_scale(ref: float, shape) -> dict:
+    """Quiver scaling that draws the reference length as 0.7 of the spacing between arrows.
+
+    With about 90 % of the arrows no longer than the reference (:func:`_reference_length`), the
+    arrows rarely overlap and the shading stays readable between them.
+    """
+    spacing = 1.0 / max(shape[-1], 1)  # in axes widths
+    return {"scale_units": "width", "scale": ref / (0.7 * spacing)}
+
+
 def _draw_vectors(ax, u, v, stride, geo: bool):
     u = _map_field_2d(u, "vectors")
     v = _map_field_2d(v, "vectors")
@@ -547,66 +551,194 @@ def _draw_vectors(ax, u, v, stride, geo: bool):
         norm = np.hypot(ut, vt)
         scale = np.divide(speed, norm, out=np.zeros_like(speed), where=norm > 0)
         xy = ax.projection.transform_points(pc, lon2, lat2)
+        ref = _reference_length(speed)
         q = ax.quiver(xy[..., 0], xy[..., 1], ut * scale, vt * scale, angles="uv", transform=ax.projection,
-                      width=0.0025, color="0.1")
+                      width=0.0018, color="0.1", **_arrow_scale(ref, lon2.shape))
     else:
-        q = ax.quiver(lon2, lat2, ue, vn, angles="uv", width=0.0025, color="0.1")
-    ref = _reference_length(speed)
+        ref = _reference_length(speed)
+        q = ax.quiver(lon2, lat2, ue, vn, angles="uv", width=0.0018, color="0.1", **_arrow_scale(ref, lon2.shape))
     units = _readable_units(u.attrs.get("units"))
-    key = ax.quiverkey(q, X=0.04, Y=0.04, U=ref, label=f"{_round_number(ref)} {units}".strip(), labelpos="E",
+    key = ax.quiverkey(q, X=0.1, Y=0.07, U=ref, label=f"{_round_number(ref)} {units}".strip(), labelpos="E",
                        coordinates="axes", fontproperties={"size": 7}, zorder=5)
     key.text.set_bbox({"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.5})
     return q, key
 
 
 # ---------------------------------------------------------------------- maps
+_AUTO_BANDS = 11  # filled bands between the robust limits of a field with no table entry
+
+
+def _fill_levels(values, fstyle, levels, interval, robust_percentile, symmetric) -> tuple[np.ndarray, bool]:
+    """Filled-contour levels in display units and whether they are the signed (zero-centred) kind.
+
+    Order: explicit ``levels``; the field's table entry (:data:`qgforce._map_style.FIELD_STYLES`) with
+    ``interval`` put in when given; for a field with no entry, multiples of ``interval`` over the data
+    range, else :data:`_AUTO_BANDS` bands between the robust limits of :func:`colour_limits`.  Table levels
+    are fixed, so a field is coloured alike at every time of a run.
+    """
+    if levels is not None:
+        lv = np.asarray(levels, dtype=np.float64)
+        return lv, bool(lv[0] < 0.0 < lv[-1])
+    if fstyle is not None:
+        if interval is not None:
+            fstyle = MS.FieldStyle(**{**fstyle.__dict__, "interval": float(interval), "levels": None})
+        lv = fstyle.contour_levels()
+        if lv is not None:
+            return lv, fstyle.signed
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        raise InputDataError("cannot choose colour levels: every value of the field is NaN")
+    if interval is not None:
+        lo, hi = math.floor(finite.min() / interval), math.ceil(finite.max() / interval)
+        if hi - lo > 256:
+            raise InputDataError(
+                f"interval={interval!r} gives {hi - lo} bands over the range {finite.min():g} to {finite.max():g} "
+                f"(in the displayed units); choose a larger interval")
+        lv = np.arange(lo, max(hi, lo + 1) + 1) * float(interval)
+        return lv, bool(lv[0] < 0.0 < lv[-1])
+    vmin, vmax, signed = colour_limits(values, robust_percentile, symmetric)
+    return np.linspace(vmin, vmax, _AUTO_BANDS + 1), signed
+
+
+def _native_coords(ax, lon, lat, geo: bool):
+    """Grid coordinates to draw with, and the transform keywords.
+
+    On a GeoAxes in a projection other than Plate Carrée the grid points are projected once,
+    vectorised, and drawn in the map's own coordinates (cartopy's per-polygon projection of
+    filled contours costs seconds per panel); in Plate Carrée cartopy's own transform is cheap.
+    """
+    if not geo:
+        return lon, lat, {}
+    ccrs = _cartopy_crs()
+    pc = ccrs.PlateCarree()
+    if isinstance(ax.projection, ccrs.PlateCarree):
+        return lon, lat, {"transform": pc}
+    lon2, lat2 = np.meshgrid(lon, lat) if np.ndim(lon) == 1 else (lon, lat)
+    xy = ax.projection.transform_points(pc, lon2, lat2)
+    if not np.isfinite(xy[..., :2]).all():  # a point outside the projection's domain: let cartopy cut
+        return lon, lat, {"transform": pc}
+    return xy[..., 0], xy[..., 1], {"transform": ax.projection}
+
+
+def _draw_fill(ax, lon, lat, values, lv, cmap, style, tkw):
+    """Filled contours (``style="filled"``) or grid cells (``"cells"``) with one discrete colour per band."""
+    import matplotlib
+    from matplotlib.colors import BoundaryNorm
+
+    cmap = matplotlib.colormaps[cmap] if isinstance(cmap, str) else cmap
+    ext = _extend(values, lv[0], lv[-1])
+    norm = BoundaryNorm(lv, ncolors=cmap.N, extend=ext)
+    if style == "cells":
+        return ax.pcolormesh(lon, lat, values, cmap=cmap, norm=norm, shading="nearest", **tkw), ext
+    return ax.contourf(lon, lat, values, levels=lv, cmap=cmap, norm=norm, extend=ext, **tkw), ext
+
+
+def _fill_colour_bar(fig, mesh, ax, field, fstyle, lv, ext):
+    """Vertical colour bar beside its panel, ticks on the levels, labelled ``name [display units]``."""
+    from matplotlib.ticker import FuncFormatter
+
+    from matplotlib.ticker import MaxNLocator
+
+    if fstyle is None:  # levels from the data: round ticks within them
+        ticks = MaxNLocator(nbins=8).tick_values(lv[0], lv[-1])
+        ticks = ticks[(ticks >= lv[0] - 1e-12 * abs(lv[0])) & (ticks <= lv[-1] + 1e-12 * abs(lv[-1]))]
+    elif lv.size <= 13:
+        ticks = lv
+    elif lv[0] < 0.0 < lv[-1] and np.allclose(lv, -lv[::-1]):  # symmetric bands: ticks mirrored about zero
+        step = math.ceil(lv.size / 12)
+        upper = lv[lv > 0][step - 1::step]
+        ticks = np.concatenate([-upper[::-1], upper])
+    else:
+        ticks = lv[:: math.ceil(lv.size / 12)]
+    cbar = fig.colorbar(mesh, ax=ax, orientation="vertical", fraction=0.046, pad=0.03, shrink=0.92, extend=ext,
+                        ticks=ticks)
+    k = 0 if fstyle is not None else _tick_exponent(float(lv[0]), float(lv[-1]))
+    if k:
+        cbar.formatter = FuncFormatter(lambda v, _pos=None: f"{v / 10.0**k:.3g}")
+        cbar.update_ticks()
+    units = _readable_units(fstyle.units if fstyle is not None else field.attrs.get("units"))
+    units = re.sub(r"^10(-?\d+)(?= )", lambda m: "10" + m.group(1).translate(_SUPERSCRIPT), units)
+    if k:
+        units = f"10{str(k).translate(_SUPERSCRIPT)} {units}".strip()
+    name = _display_name(field) or "field"
+    cbar.set_label(f"{name} [{units}]" if units else name, fontsize=8)
+    cbar.ax.tick_params(labelsize=7)
+    return cbar
+
+
+def _legend_handles(field, values, height_interval):
+    """Legend entries: the height contours (named, with their interval) and blank cells of an hours field."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    handles = []
+    if height_interval is not None:
+        handles.append(Line2D([], [], color=_LINE_COLOUR, linewidth=0.8,
+                              label=f"geopotential height, every {height_interval:g} dam"))
+    if str(field.name).startswith("hours_") and np.isnan(values).any():
+        horizon = field.attrs.get("qgforce_lifting_horizon_hours")
+        within = f" within {float(horizon):g} h" if horizon is not None else " within the horizon"
+        handles.append(Patch(facecolor="white", edgecolor="0.4", linewidth=0.6, label=f"blank: not reached{within}"))
+    return handles
+
+
 def _draw_map(ax, field, *, contours, contour_interval, vectors, vector_stride, robust_percentile, symmetric, cmap,
-              title, coastlines) -> PlotArtists:
+              title, coastlines, levels=None, interval=None, style="filled") -> PlotArtists:
+    MS.check_levels(levels, interval, style)
     fig = ax.figure
     geo = _is_geoaxes(ax)
     lon, lat = _lonlat(field)
-    values = np.asarray(field.values, dtype=np.float64)
-    vmin, vmax, signed = colour_limits(values, robust_percentile, symmetric)
-    from matplotlib.colors import Normalize
-
-    tkw = {"transform": _cartopy_crs().PlateCarree()} if geo else {}
-    mesh = ax.pcolormesh(lon, lat, values, cmap=cmap or (_SIGNED_CMAP if signed else _UNSIGNED_CMAP),
-                         norm=Normalize(vmin=vmin, vmax=vmax), shading="nearest", **tkw)
-    cbar = _colour_bar(fig, mesh, ax, field, values, vmin, vmax, orientation="horizontal", fraction=0.05,
-                       pad=0.06 if geo else 0.1)
-    art = PlotArtists(ax=ax, mesh=mesh, colorbar=cbar)
+    fstyle = MS.field_style(field.name, field.attrs.get("units"))
+    values = np.asarray(field.values, dtype=np.float64) * (fstyle.scale if fstyle is not None else 1.0)
+    lv, signed = _fill_levels(values, fstyle, levels, interval, robust_percentile, symmetric)
+    horizon = field.attrs.get("qgforce_lifting_horizon_hours")
+    if levels is None and horizon is not None and (lv <= float(horizon)).sum() >= 2:
+        lv = lv[lv <= float(horizon)]  # no colour for times the lifting never reached
+    if cmap is None:
+        cmap = fstyle.cmap if fstyle is not None else (_SIGNED_CMAP if signed else _UNSIGNED_CMAP)
+    x, y, tkw = _native_coords(ax, lon, lat, geo)
+    mesh, ext = _draw_fill(ax, x, y, values, lv, cmap, style, tkw)
+    art = PlotArtists(ax=ax, mesh=mesh, colorbar=_fill_colour_bar(fig, mesh, ax, field, fstyle, lv, ext))
+    height_interval = None
     if contours is not None:
         cfield = _map_field_2d(contours, "contours")
         clon, clat = _lonlat(cfield)
+        cx, cy, ckw = _native_coords(ax, clon, clat, geo)
         cvalues, _, is_height = _contour_display(cfield)
-        interval = contour_interval if contour_interval is not None else (6.0 if is_height else None)
+        interval_c = contour_interval if contour_interval is not None else (6.0 if is_height else None)
         art.contours, art.contour_labels = _draw_contours(
-            ax, clon, clat, cvalues, _contour_levels(cvalues, interval), tkw)
+            ax, cx, cy, cvalues, _contour_levels(cvalues, interval_c), ckw)
+        if is_height and art.contours is not None:
+            height_interval = float(np.diff(art.contours.levels).min()) if len(art.contours.levels) > 1 else None
     if vectors is not None:
         try:
             u, v = vectors
         except (TypeError, ValueError) as exc:
             raise InputDataError("vectors must be a pair (u, v) of 2-D DataArrays") from exc
         art.quiver, art.quiverkey = _draw_vectors(ax, u, v, vector_stride, geo)
+    if not geo:
+        _decorate_plain_map(ax, lat)
+    if coastlines:
+        extent = (float(np.nanmin(lon)), float(np.nanmax(lon)), float(np.nanmin(lat)), float(np.nanmax(lat)))
+        art.geography = draw_geography(ax, extent)
+        art.coastlines = art.geography.get("coastline")
     if geo:
-        if coastlines:
-            global_map = lon.ndim == 1 and float(np.ptp(lon)) >= 300.0
-            res = _coastline_resolution(("110m", "50m", "10m") if global_map else ("50m", "110m", "10m"))
-            if res is not None:
-                art.coastlines = ax.coastlines(resolution=res, linewidth=0.6, color="0.15")
         gl = ax.gridlines(draw_labels=True, linewidth=0.4, color="0.6", linestyle=":")
         gl.top_labels = gl.right_labels = False
         gl.xlabel_style = gl.ylabel_style = {"size": 7}
-    else:
-        _decorate_plain_map(ax, lat)
+    handles = _legend_handles(field, values, height_interval)
+    if handles:
+        art.legend = ax.legend(handles=handles, loc="upper right", fontsize=6, framealpha=0.85, borderpad=0.4,
+                               handlelength=1.6)
+        art.legend.set_zorder(6)
     ax.set_title(title if title is not None else _default_title(field), fontsize=9)
     return art
 
 
 def map_field(field, ax=None, *, contours=None, contour_interval=None, vectors=None, vector_stride=None,
               robust_percentile=98, symmetric=None, cmap=None, title=None, projection=None,
-              coastlines=True) -> PlotArtists:
-    """Filled map of a 2-D field, optionally with geopotential-height contours and vectors.
+              coastlines=True, levels=None, interval=None, style="filled") -> PlotArtists:
+    """Analysis-style map of a 2-D field, optionally with geopotential-height contours and vectors.
 
     Parameters
     ----------
@@ -618,33 +750,45 @@ def map_field(field, ax=None, *, contours=None, contour_interval=None, vectors=N
     contours : xarray.DataArray, optional
         2-D field contoured over the colours.  Geopotential [m2 s-2] is shown as geopotential
         height in decametres (Φ / g / 10), a height [m] in dam; other fields in their own units.
+        Height contours are named in the panel's legend.
     contour_interval : float, optional
         Contour interval in the displayed units; 6 dam for heights, else about 12 round levels.
     vectors : (xarray.DataArray, xarray.DataArray), optional
         Vector components (u, v) on the field's grid, eastward/northward (or grid-relative
         when ``u.attrs["wind_relative_to"] == "grid"``, rotated to east/north before drawing).
+        Thinned; the reference arrow sits inside the panel's lower-left corner.
     vector_stride : int, optional
         Draw every n-th vector in each direction; by default about 22 arrows across the map.
     robust_percentile : float, optional
-        Percentile for the colour limits (see :func:`colour_limits`).
+        Percentile for the colour limits of a field with no fixed levels (see :func:`colour_limits`).
     symmetric : bool, optional
-        Zero-centred colour limits; by default when the field has both signs.
+        Zero-centred colour limits for a field with no fixed levels; by default when it has both signs.
     cmap : str or Colormap, optional
-        Default ``"RdBu_r"`` for signed fields, ``"viridis"`` otherwise.
+        Default: the field's table entry (the red end marks ascent and what forces it; ω reversed),
+        ``"RdBu_r"`` for other signed fields, ``"viridis"`` otherwise.
     title : str, optional
-        Default: the long name, level and time of the field.
+        Default: the field's display name, level and valid time (UTC, with initial and lead time
+        when the data carry ``valid_time``/``step``/``forecast_reference_time``).
     projection : cartopy.crs.Projection or False, optional
         Map projection of a new axes.  None: a Lambert conformal centred on the data (Plate
-        Carrée for global or near-equatorial data) when cartopy is importable, else plain axes.
-        False: plain longitude–latitude axes.  Ignored when ``ax`` is given.
+        Carrée for global or near-equatorial data).  False: plain longitude–latitude axes.
+        Ignored when ``ax`` is given.
     coastlines : bool, optional
-        Add coastlines (cartopy only, and only if the Natural Earth shapefile is already on disk).
+        Draw coastlines, country borders and state lines from the data shipped with the package
+        (:mod:`qgforce.geography`; never a download), on GeoAxes and on plain axes alike.
+    levels : sequence of float, optional
+        Explicit colour levels in the display units (strictly increasing).
+    interval : float, optional
+        Level spacing in the display units; for fields of the style table it keeps the table's band
+        count, otherwise it covers the data range.
+    style : {"filled", "cells"}, optional
+        Filled contours (an analysis) or one coloured cell per grid point (the raw grid).
 
     Returns
     -------
     PlotArtists
-        ``ax``, ``mesh``, ``colorbar`` and, when drawn, ``contours``, ``contour_labels``,
-        ``quiver``, ``quiverkey``, ``coastlines``.
+        ``ax``, ``mesh``, ``colorbar``, ``coastlines``, ``geography`` and, when drawn,
+        ``contours``, ``contour_labels``, ``quiver``, ``quiverkey``, ``legend``.
 
     Raises
     ------
@@ -652,23 +796,28 @@ def map_field(field, ax=None, *, contours=None, contour_interval=None, vectors=N
         If a field is not 2-D on a horizontal grid (the message names the extra dimensions).
     InputDataError
         If the field is all NaN or an option is out of range.
+    OptionError
+        For malformed ``levels``, ``interval`` or ``style``.
     QGForceError
         If a cartopy projection is requested but cartopy cannot be imported.
 
     Notes
     -----
-    Colour limits: ±P-th percentile of |values| for signed fields, the (100 − P)-th and P-th
-    percentiles otherwise (:func:`colour_limits`); the colour bar is extended where values
-    exceed them.  Cells are centred on the grid points (``shading="nearest"``).
+    Display units, scale and fixed levels come from one table
+    (:data:`qgforce._map_style.FIELD_STYLES`: e.g. temperature advection in K h⁻¹, frontogenesis in
+    K (100 km)⁻¹ (3 h)⁻¹), so a field is coloured alike at every time of a run.  Signed fields leave a
+    white band between −interval and +interval.  A field with no table entry gets bands between the
+    robust limits of :func:`colour_limits`.  The colour bar is extended where values pass the levels.
     """
     field = _map_field_2d(field, "map_field")
+    MS.check_levels(levels, interval, style)
     if ax is None:
-        fig = _pyplot().figure(figsize=(7.0, 5.5), layout="constrained")
+        fig = _pyplot().figure(figsize=(7.5, 5.5), layout="constrained")
         lon, lat = _lonlat(field)
         ax = _map_axes(fig, (1, 1, 1), lon, lat, projection)
     return _draw_map(ax, field, contours=contours, contour_interval=contour_interval, vectors=vectors,
                      vector_stride=vector_stride, robust_percentile=robust_percentile, symmetric=symmetric,
-                     cmap=cmap, title=title, coastlines=coastlines)
+                     cmap=cmap, title=title, coastlines=coastlines, levels=levels, interval=interval, style=style)
 
 
 # ---------------------------------------------------------------------- sections
@@ -794,8 +943,21 @@ def _select_time(results, time):
     return results
 
 
+def _panel_specs(fig, n: int, ncols: int):
+    """Subplot specs of ``n`` panels, ``ncols`` a row, the last row centred: no empty slot is drawn."""
+    nrows = math.ceil(n / ncols)
+    gs = fig.add_gridspec(nrows, 2 * ncols)
+    specs = []
+    for i in range(n):
+        row, col = divmod(i, ncols)
+        in_row = min(ncols, n - row * ncols)
+        start = (ncols - in_row) + 2 * col
+        specs.append(gs[row, start:start + 2])
+    return specs
+
+
 def summary_figure(results, *, time=None, level=None, fields=None, omega_level=None, ncols=None, figsize=None,
-                   projection=None):
+                   projection=None, options=None):
     """Multi-panel figure of the main QG forcing terms and ω for one time.
 
     Parameters
@@ -822,6 +984,10 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
         Inches; default 4.3 × 4.0 per panel.
     projection : cartopy.crs.Projection or False, optional
         As for :func:`map_field`, shared by all panels.
+    options : mapping, optional
+        Per-field drawing settings, ``{field name: {"levels": [...], "interval": x, "style":
+        "filled"|"cells", "cmap": name}}`` (display units; see :func:`map_field`), e.g. from a
+        job's configuration.
 
     Returns
     -------
@@ -835,9 +1001,12 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
     Notes
     -----
     Every panel gets geopotential-height contours at its own level when ``geopotential`` is
-    present; the ``q_vector_forcing`` panel also gets the Q-vectors.  The figure title gives the
-    valid time; the foot of the figure carries :data:`CAUTION`.
+    present; the ``q_vector_forcing`` panel also gets the Q-vectors.  Panels fill rows of ``ncols``
+    with the last row centred (no empty slot); each colour bar stands beside its panel.  The
+    figure title gives the valid time in UTC (with initial and lead time when the data carry
+    them); the foot of the figure carries :data:`CAUTION`.
     """
+    options = MS.check_field_options(options)
     wanted = tuple(SUMMARY_FIELDS if fields is None else fields)
     present = [n for n in wanted if n in results.data_vars]
     if not present:
@@ -853,7 +1022,7 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
     ncols = min(int(ncols), len(present))
     nrows = math.ceil(len(present) / ncols)
     if figsize is None:
-        figsize = (4.3 * ncols, 4.0 * nrows + 0.5)
+        figsize = (4.6 * ncols, 3.9 * nrows + 0.6)
     plt = _pyplot()
     fig = plt.figure(figsize=figsize, layout="constrained")
     foot = min(0.35 / figsize[1], 0.2)
@@ -863,16 +1032,16 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
     ccrs = None if projection is False else _cartopy_crs()
     if ccrs is not None and projection is None:
         projection = _default_projection(ccrs, lon, lat)
-    for i, name in enumerate(present):
+    for spec, name in zip(_panel_specs(fig, len(present), ncols), present):
         p = _panel_level(name, level, omega_level)
         field = _map_field_2d(_at_level(ds[name], p), "summary_figure")
-        ax = _map_axes(fig, (nrows, ncols, i + 1), lon, lat, projection)
+        ax = _map_axes(fig, (spec,), lon, lat, projection)
         geop = _at_level(ds["geopotential"], p) if "geopotential" in ds.data_vars else None
         vec = None
         pair = _variables.vector_pair(name)
         if pair and all(q in ds.data_vars for q in pair):
             vec = tuple(_at_level(ds[q], p) for q in pair)
-        style = {"symmetric": None, "cmap": None, **PANEL_STYLES.get(name, {})}
+        style = {"symmetric": None, "cmap": None, **PANEL_STYLES.get(name, {}), **options.get(name, {})}
         title = _variables.panel_title(name)
         if "level" in ds[name].dims:
             title += f" — {p / 100.0:g} hPa"
@@ -881,8 +1050,8 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
         if art.colorbar is not None:  # the title names the field: the colour bar carries only its units
             full = art.colorbar.ax.get_xlabel() or art.colorbar.ax.get_ylabel()
             art.colorbar.set_label(full[full.rfind("["):] if "[" in full else full, fontsize=8)
-    when = _format_time(ds["time"].values) if "time" in ds.coords and ds["time"].ndim == 0 else None
-    fig.suptitle("QG forcing diagnostics" + (f", valid {when}" if when else ""), fontsize=11)
+    when = MS.time_text(ds, _format_time)
+    fig.suptitle("QG forcing diagnostics" + (f", {when}" if when else ""), fontsize=11)
     fig.text(0.5, foot * 0.45, CAUTION, ha="center", va="center", fontsize=7, style="italic", color="0.3")
     return fig
 

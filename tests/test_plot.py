@@ -324,7 +324,8 @@ LON = np.arange(-40.0, 50.1, 1.5)  # 61 columns
 
 
 def test_map_field_signed_field_on_given_axes(no_cartopy):
-    f = latlon_field(LAT, LON)
+    # a field with no entry in the style table keeps the robust automatic colour limits
+    f = latlon_field(LAT, LON, name="custom_rate", long_name="custom rate")
     f = f.where(f.latitude < 63)  # some NaN
     fig, ax = plt.subplots()
     art = plot.map_field(f, ax=ax)
@@ -333,18 +334,20 @@ def test_map_field_signed_field_on_given_axes(no_cartopy):
     assert art.mesh.norm.vmin == -art.mesh.norm.vmax
     assert art.mesh.norm.vmax == pytest.approx(np.nanpercentile(np.abs(f.values), 98), rel=1e-15)
     assert art.mesh.cmap.name == "RdBu_r"
-    label = art.colorbar.ax.get_xlabel()
-    assert label.startswith("temperature advection [") and label.endswith(" K s⁻¹]")
+    label = art.colorbar.ax.get_ylabel()  # the colour bar stands beside the map
+    assert label.startswith("custom rate [") and label.endswith(" K s⁻¹]")
     # the power of ten of the limits (here 10⁻⁵, vmax ≈ 1e-4 × 0.98) moves from the ticks into the label
     k = math.floor(math.log10(art.mesh.norm.vmax))
     assert k == -5 and "[10⁻⁵ K s⁻¹]" in label
-    tick = art.colorbar.ax.get_xticks()[-2]
+    tick = art.colorbar.ax.get_yticks()[-2]
     assert float(art.colorbar.formatter(tick).replace("−", "-")) == pytest.approx(tick / 10.0**k, rel=1e-3)
-    assert art.coastlines is None and art.contours is None and art.quiver is None
+    assert art.contours is None and art.quiver is None
+    # the shipped geography is drawn on plain axes too (no cartopy here)
+    assert art.coastlines is not None and len(art.coastlines.get_segments()) > 0
 
 
 def test_map_field_without_cartopy_uses_degree_labelled_axes(no_cartopy):
-    f = latlon_field(LAT, LON, name="frontogenesis", units="K m-1 s-1",
+    f = latlon_field(LAT, LON, name="front_strength", units="K m-1 s-1",
                      func=lambda p, la, lo: 1e-9 * (1.0 + np.cos(np.deg2rad(lo))))
     art = plot.map_field(f)  # projection=None falls back to plain axes
     assert not hasattr(art.ax, "projection")
@@ -417,11 +420,15 @@ def test_map_field_rotates_grid_relative_vectors_to_east_north():
 
 def test_map_field_projected_grid_with_and_without_cartopy(offline_cartopy):
     da = lcc_field(levels=(50000.0,)).isel(level=0)
-    art = plot.map_field(da, projection=False)
+    art = plot.map_field(da, projection=False, style="cells")
     # pcolormesh on the 2-D coordinates: one cell per grid point
     assert art.mesh.get_array().size == da.size
-    art = plot.map_field(da)
+    art = plot.map_field(da, style="cells")
     assert hasattr(art.ax, "projection") and art.mesh.get_array().size == da.size
+    from matplotlib.contour import QuadContourSet
+
+    art = plot.map_field(da)  # the default: filled contours (an analysis)
+    assert isinstance(art.mesh, QuadContourSet) and art.coastlines is not None
     art.ax.figure.canvas.draw()  # drawing must not try to download anything
 
 
@@ -430,7 +437,9 @@ def test_map_field_with_cartopy_but_no_coastline_data(offline_cartopy):
 
     f = latlon_field(LAT, LON)
     art = plot.map_field(f)
-    assert isinstance(art.ax, GeoAxes) and art.coastlines is None
+    # no Natural Earth file on disk, yet coastlines are drawn: from the data shipped with qgforce
+    assert isinstance(art.ax, GeoAxes) and art.coastlines is not None
+    assert set(art.geography) >= {"coastline", "borders"}
     art.ax.figure.canvas.draw()  # offline_cartopy makes any download attempt raise
     global_f = latlon_field(np.arange(-88.0, 89.0, 4.0), np.arange(0.0, 360.0, 4.0))
     art = plot.map_field(global_f)
