@@ -1,6 +1,6 @@
 """Sampling of gridded fields along a great-circle line (the data side of cross-sections).
 
-Two public functions:
+Public functions:
 
 :func:`great_circle_points`
     Points equally spaced in central angle along the shorter great-circle arc between two
@@ -9,6 +9,10 @@ Two public functions:
     Any field with horizontal dimensions (``latitude``/``longitude`` or ``y``/``x``) sampled at
     those points, giving a DataArray with a ``distance`` dimension (and ``level`` and any other
     dimensions kept as they were), ready for a vertical cross-section.
+:func:`line_azimuths`
+    The direction of travel (azimuth, clockwise from north) at each point of the line.
+:func:`along_line_wind`
+    The horizontal wind component along the line (toward its end), sampled at those points.
 
 The plotting layer (:mod:`qgforce.plot`) only draws what this module returns.
 
@@ -36,7 +40,7 @@ import xarray as xr
 from . import constants as C
 from .errors import DataQualityWarning, GridError, InputDataError
 
-__all__ = ["GreatCirclePoints", "great_circle_points", "sample_along_line"]
+__all__ = ["GreatCirclePoints", "great_circle_points", "line_azimuths", "sample_along_line", "along_line_wind"]
 
 #: Horizontal dimension pairs of a normalised dataset, (y, x) order.
 _LATLON = ("latitude", "longitude")
@@ -343,3 +347,82 @@ def sample_along_line(da, start, end, npoints: int = 100, *, crs=None) -> xr.Dat
     out.attrs["qgforce_section_start"] = [float(v) for v in start]
     out.attrs["qgforce_section_end"] = [float(v) for v in end]
     return out
+
+
+def line_azimuths(start, end, npoints: int = 100, *, radius: float = C.EARTH_RADIUS) -> np.ndarray:
+    """Azimuth of the direction of travel at each point of :func:`great_circle_points`.
+
+    Parameters
+    ----------
+    start, end, npoints, radius
+        As for :func:`great_circle_points`.
+
+    Returns
+    -------
+    ndarray
+        Degrees clockwise from north, in (−180, 180], of length ``npoints``: the forward azimuth
+        of the geodesic from each point toward ``end`` (at ``end`` itself, the back azimuth from
+        ``end`` to ``start`` turned by 180°).
+
+    Notes
+    -----
+    Azimuths from :meth:`pyproj.Geod.inv` on the sphere (Karney 2013).  On a great circle the
+    azimuth toward the end is the tangent direction of the line itself.
+    """
+    line = great_circle_points(start, end, npoints, radius=radius)
+    geod = _sphere(float(radius))
+    lat, lon = line.latitude, line.longitude
+    az = np.empty(lat.size)
+    az[:-1], _, _ = geod.inv(lon[:-1], lat[:-1], np.full(lat.size - 1, lon[-1]), np.full(lat.size - 1, lat[-1]),
+                             return_back_azimuth=True)
+    _, back, _ = geod.inv(lon[0], lat[0], lon[-1], lat[-1], return_back_azimuth=True)
+    az[-1] = float(back) + 180.0
+    return 180.0 - (180.0 - az) % 360.0  # into (-180, 180]
+
+
+def along_line_wind(u, v, start, end, npoints: int = 100, *, crs=None) -> xr.DataArray:
+    """The horizontal wind component along the great circle from ``start`` to ``end``.
+
+    Parameters
+    ----------
+    u, v : xarray.DataArray
+        Wind components on the same grid, eastward/northward (or along the grid axes of a
+        projected grid when ``u.attrs["wind_relative_to"] == "grid"``: they are turned to
+        east/north first with :func:`qgforce.kinematics.earth_relative_wind`).
+    start, end, npoints, crs
+        As for :func:`sample_along_line`.
+
+    Returns
+    -------
+    xarray.DataArray
+        u_s = u sin α + v cos α [m s-1], with α the azimuth of the line at each point
+        (:func:`line_azimuths`): positive from ``start`` toward ``end``.  Dims and coordinates as
+        :func:`sample_along_line` returns them.
+
+    Raises
+    ------
+    GridError
+        See :func:`sample_along_line`; also when ``u`` and ``v`` differ in dims.
+
+    Notes
+    -----
+    The components are sampled first and combined at the points (both operations are linear,
+    so the order does not matter for bilinear interpolation).  The tests check the result on a
+    rigid rotation of the sphere about the pole of the line, whose along-line component is the
+    same everywhere on it (Ω a).
+    """
+    if u.dims != v.dims:
+        raise GridError(f"u and v must have the same dimensions; found {u.dims} and {v.dims}")
+    if u.attrs.get("wind_relative_to") == "grid" and "x" in u.dims:
+        from .kinematics import earth_relative_wind
+
+        u, v = earth_relative_wind(u, v)
+    us = sample_along_line(u, start, end, npoints, crs=crs)
+    vs = sample_along_line(v, start, end, npoints, crs=crs)
+    alpha = xr.DataArray(np.deg2rad(line_azimuths(start, end, npoints)), dims="distance")
+    out = us * np.sin(alpha) + vs * np.cos(alpha)
+    out.attrs = {"units": u.attrs.get("units", "m s-1"), "long_name": "wind component along the section",
+                 "qgforce_positive": "from the start of the section toward its end",
+                 "qgforce_section_start": us.attrs["qgforce_section_start"],
+                 "qgforce_section_end": us.attrs["qgforce_section_end"]}
+    return out.rename("along_section_wind")

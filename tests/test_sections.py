@@ -83,3 +83,46 @@ def test_projected_sampling_reads_the_crs_through_the_io_helper(monkeypatch):
         s["longitude"].values, s["latitude"].values)
     # the field is linear in x and y: bilinear interpolation is exact
     np.testing.assert_allclose(s.values[0], 2e-6 * qx - 1e-6 * qy, rtol=1e-10, atol=1e-9)
+
+
+def _rigid_rotation_wind(start, end, lat, lon, rate=1e-5):
+    """East/north wind of a rigid rotation of the sphere, rate [s-1] about the pole of the great
+    circle through ``start`` and ``end`` (turning start toward end): V = rate * (p x r)."""
+    def unit(la, lo):
+        la, lo = np.deg2rad(la), np.deg2rad(lo)
+        return np.stack([np.cos(la) * np.cos(lo), np.cos(la) * np.sin(lo), np.sin(la)], axis=-1)
+
+    pole = np.cross(unit(*start), unit(*end))
+    pole /= np.linalg.norm(pole)
+    la, lo = np.meshgrid(lat, lon, indexing="ij")
+    r = R * unit(la, lo)
+    vel = rate * np.cross(pole, r)
+    phi, lam = np.deg2rad(la), np.deg2rad(lo)
+    east = np.stack([-np.sin(lam), np.cos(lam), np.zeros_like(lam)], axis=-1)
+    north = np.stack([-np.sin(phi) * np.cos(lam), -np.sin(phi) * np.sin(lam), np.cos(phi)], axis=-1)
+    return np.sum(vel * east, axis=-1), np.sum(vel * north, axis=-1)
+
+
+def test_along_line_wind_of_a_rigid_rotation_is_the_rim_speed():
+    import xarray as xr
+
+    start, end = (35.0, -30.0), (60.0, 25.0)
+    lat, lon = np.arange(20.0, 75.1, 0.5), np.arange(-50.0, 45.1, 0.5)
+    u, v = _rigid_rotation_wind(start, end, lat, lon)
+    coords = {"level": [85000.0], "latitude": lat, "longitude": lon}
+    U = xr.DataArray(u[None], dims=("level", "latitude", "longitude"), coords=coords, attrs={"units": "m s-1"})
+    V = xr.DataArray(v[None], dims=("level", "latitude", "longitude"), coords=coords, attrs={"units": "m s-1"})
+    s = sections.along_line_wind(U, V, start, end, 25)
+    assert s.dims == ("level", "distance") and s.attrs["units"] == "m s-1"
+    # analytic: on the great circle the rotation moves along the line at rate * R (63.71 m/s here)
+    np.testing.assert_allclose(s.values, 1e-5 * R, rtol=2e-4)
+    # reversed line: the component changes sign
+    back = sections.along_line_wind(U, V, end, start, 25)
+    np.testing.assert_allclose(back.values, -1e-5 * R, rtol=2e-4)
+
+
+def test_line_azimuths_along_the_equator_and_a_meridian():
+    # analytic: eastward along the equator the azimuth is 90 everywhere; northward on a meridian 0
+    np.testing.assert_allclose(sections.line_azimuths((0.0, -20.0), (0.0, 20.0), 5), 90.0, atol=1e-9)
+    np.testing.assert_allclose(sections.line_azimuths((10.0, 5.0), (50.0, 5.0), 5), 0.0, atol=1e-9)
+    np.testing.assert_allclose(sections.line_azimuths((50.0, 5.0), (10.0, 5.0), 5), 180.0, atol=1e-9)
