@@ -1,0 +1,1 @@
+"""The jobs the command line runs, one small module each, as plain functions over the library."""
