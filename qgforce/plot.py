@@ -747,9 +747,10 @@ def _draw_circulation(ax, section, along, omega, log_pressure: bool, vertical_ex
     q = over.quiver(xx[ok], yy[ok], tau * dx[ok], tau * dy[ok], angles="xy", scale_units="xy", scale=1.0,
                     width=0.0025, color="0.1")
     ref = _reference_length(np.abs(us[np.isfinite(us)]))
-    kind = "along-section wind" + (f" and −ω (vertical ×{k:g})" if omega is not None else " (no ω: horizontal only)")
-    key = over.quiverkey(q, X=0.03, Y=0.96, U=tau * ref / length_m, coordinates="axes", labelpos="E",
-                         label=f"{_round_number(ref)} m s⁻¹; arrows: {kind}", fontproperties={"size": 7}, zorder=5)
+    kind = f"(−ω ×{k:g})" if omega is not None else "(no ω: horizontal only)"
+    # the key sits under the axes at the left, on the line of the axis label, clear of the arrows
+    key = over.quiverkey(q, X=0.015, Y=-0.068, U=tau * ref / length_m, coordinates="axes", labelpos="E",
+                         label=f"{_round_number(ref)} m s⁻¹ {kind}", fontproperties={"size": 7}, zorder=5)
     key.text.set_bbox({"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.5})
     return q, key, k
 
