@@ -153,3 +153,13 @@ def test_run_section_requires_the_ends_and_files():
         S.run_section({"files": [str(DEMO)], "end": "40,10"})
     with pytest.raises(QGForceError, match="input files"):
         S.run_section({"start": "40,0", "end": "50,10"})
+
+
+def test_section_help_lists_the_options(capsys):
+    with pytest.raises(SystemExit) as exc:
+        _parser().parse_args(["section", "--help"])
+    assert exc.value.code == 0
+    text = capsys.readouterr().out
+    for flag in ("--start LAT,LON", "--end LAT,LON", "--fields", "--times", "--points", "--prefix", "-o DIR",
+                 "--dpi", "--overwrite", "-35,150"):
+        assert flag in text
