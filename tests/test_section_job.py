@@ -35,10 +35,11 @@ def demo():
     return ds, results.compute()
 
 
-@pytest.mark.parametrize("argv", [["--start", "-35,150", "--end", "-10.5,100"],
-                                  ["--start=-35,150", "--end=-10.5,100"]])
+@pytest.mark.parametrize("argv", [["in.nc", "--start", "-35,150", "--end", "-10.5,100"],
+                                  ["in.nc", "--start=-35,150", "--end=-10.5,100"],
+                                  ["--start", "-35,150", "--end", "-10.5,100", "in.nc"]])
 def test_negative_coordinates_are_values_with_or_without_equals(argv):
-    ns = _parser().parse_args(["section", "in.nc", *argv, "--points", "50", "-o", "out"])
+    ns = _parser().parse_args(["section", *argv, "--points", "50", "-o", "out"])
     assert ns.start == (-35.0, 150.0) and ns.end == (-10.5, 100.0)
     assert ns.files == ["in.nc"] and ns.points == 50 and ns.output_dir == "out"
     assert ns.fields is None and ns.overwrite is None  # not given: the config or the defaults decide
@@ -127,6 +128,14 @@ def test_draw_section_checks_everything_before_writing(demo, tmp_path, kwargs, e
     args = {"start": START, "end": END, **kwargs}
     with pytest.raises(error, match=match):
         S.draw_section(results, args.pop("start"), args.pop("end"), tmp_path / "x", inputs=ds, **args)
+    assert not (tmp_path / "x").exists()
+
+
+def test_draw_section_refuses_inputs_without_the_results_times(demo, tmp_path):
+    ds, results = demo
+    other = ds.sel(time=ds.time.values[:1])  # the first time only: not the results' time
+    with pytest.raises(InputDataError, match="inputs lack 1 time"):
+        S.draw_section(results, START, END, tmp_path / "x", inputs=other)
     assert not (tmp_path / "x").exists()
 
 

@@ -245,6 +245,12 @@ def draw_section(results: xr.Dataset, start, end, output_dir, *, inputs: xr.Data
         raise InputDataError(f"{len(existing)} of the {len(jobs)} section file(s) exist already (e.g. "
                              f"{str(existing[0])!r}); pass --overwrite (overwrite=True) to replace them")
     in_tdim = _time_dim(inputs) if inputs is not None else None
+    if in_tdim is not None:
+        have = set(inputs[in_tdim].values)
+        lacking = [t for _, t in steps if t is not None and t not in have]
+        if lacking:
+            raise InputDataError(f"the inputs lack {len(lacking)} time(s) of the results (e.g. {lacking[0]}); pass "
+                                 "the dataset the results were computed from as inputs=")
     winds = inputs is not None and {"u", "v"} <= set(inputs.data_vars)
     output_dir.mkdir(exist_ok=True)
     import matplotlib.pyplot as plt
