@@ -172,3 +172,25 @@ def test_section_help_lists_the_options(capsys):
     for flag in ("--start LAT,LON", "--end LAT,LON", "--fields", "--times", "--points", "--prefix", "-o DIR",
                  "--dpi", "--overwrite", "-35,150"):
         assert flag in text
+
+
+ERA5 = Path("/tmp/cfgrib/cfgrib-0.9.15.1/tests/sample-data/era5-levels-members.nc")
+
+
+@pytest.mark.skipif(not ERA5.is_file(), reason="the ERA5 sample of the cfgrib source distribution is not unpacked")
+def test_draw_section_on_real_reanalysis_levels_across_the_seam(tmp_path):
+    # real data: ERA5 z and t at 850/500 hPa on a global 3-degree grid (cfgrib sample, Apache-2.0), one member.
+    # Two levels are too few for the forcing terms (their d/dp needs three), so the section shows an input field.
+    ds = W.open_inputs([str(ERA5)], chunks=None).isel(number=0, time=[1])
+    results = ds[["temperature"]]
+    files = S.draw_section(results, (-35.0, -20.0), (-55.0, 40.0), tmp_path, inputs=ds, fields=["temperature"],
+                           npoints=50)
+    assert [p.name for p in files] == ["section_temperature_20170101T1200.png"]
+    img = mpimg.imread(files[0])
+    assert img[..., :3].std() > 0.05
+    # the section crosses the 0/360 seam of the grid and stays finite there (periodic sampling)
+    from qgforce.sections import sample_along_line
+
+    s = sample_along_line(results.temperature.isel(time=0), (-35.0, -20.0), (-55.0, 40.0), 50)
+    assert np.isfinite(s.values).all()
+    assert 230.0 < float(s.min()) and float(s.max()) < 300.0  # plausible temperatures [K] at 850/500 hPa
