@@ -10,7 +10,8 @@ Functions
 :func:`map_field`
     Filled map of a 2-D field with optional geopotential-height contours and thinned vectors.
 :func:`cross_section`
-    Pressure–distance section of a 3-D field along a great circle.
+    Pressure–distance section of a 3-D field along a great circle, optionally with contours of a
+    second field (e.g. θ) and the in-plane circulation (along-section wind and −ω) as arrows.
 :func:`summary_figure`
     Multi-panel figure of the main forcing terms and ω for one time.
 :func:`save_figure`
