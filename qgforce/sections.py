@@ -9,6 +9,8 @@ Public functions:
     Any field with horizontal dimensions (``latitude``/``longitude`` or ``y``/``x``) sampled at
     those points, giving a DataArray with a ``distance`` dimension (and ``level`` and any other
     dimensions kept as they were), ready for a vertical cross-section.
+:func:`line_through`
+    The two ends of a line of given length and direction centred on a point.
 :func:`line_azimuths`
     The direction of travel (azimuth, clockwise from north) at each point of the line.
 :func:`along_line_wind`
@@ -40,7 +42,8 @@ import xarray as xr
 from . import constants as C
 from .errors import DataQualityWarning, GridError, InputDataError
 
-__all__ = ["GreatCirclePoints", "great_circle_points", "line_azimuths", "sample_along_line", "along_line_wind"]
+__all__ = ["GreatCirclePoints", "great_circle_points", "line_azimuths", "line_through", "sample_along_line",
+           "along_line_wind"]
 
 #: Horizontal dimension pairs of a normalised dataset, (y, x) order.
 _LATLON = ("latitude", "longitude")
@@ -158,6 +161,48 @@ def great_circle_points(start, end, npoints: int = 100, *, radius: float = C.EAR
     lat[0], lat[-1] = lat1, lat2
     distance = radius * d * np.linspace(0.0, 1.0, npoints) / 1000.0
     return GreatCirclePoints(latitude=lat, longitude=lon, distance=distance)
+
+
+def line_through(centre, azimuth: float, length_km: float, *, radius: float = C.EARTH_RADIUS):
+    """The ends of the great-circle line of ``length_km`` centred on ``centre`` in direction ``azimuth``.
+
+    Parameters
+    ----------
+    centre : (float, float)
+        (latitude, longitude) of the midpoint, degrees.
+    azimuth : float
+        Direction from the start toward the end at the midpoint, degrees clockwise from north.
+    length_km : float
+        Length of the line [km], more than 0 and less than half the circumference.
+    radius : float, optional
+        Radius of the sphere [m].
+
+    Returns
+    -------
+    ((float, float), (float, float))
+        ``(start, end)`` as (latitude, longitude) pairs, longitudes in [-180, 180).
+
+    Raises
+    ------
+    InputDataError
+        A malformed centre, a non-finite azimuth or a length out of range.
+
+    Notes
+    -----
+    The ends are the direct geodesic problem solved by :meth:`pyproj.Geod.fwd` on the sphere
+    (Karney 2013): half the length along ``azimuth`` and half along ``azimuth + 180°``.
+    """
+    lat, lon = _as_point(centre, "centre")
+    half_circumference_km = np.pi * radius / 1000.0
+    if not (np.isfinite(azimuth) and np.isfinite(length_km) and 0.0 < length_km < half_circumference_km):
+        raise InputDataError(f"a line needs a finite azimuth and a length between 0 and {half_circumference_km:.0f} km; "
+                             f"found azimuth {azimuth!r}, length {length_km!r} km")
+    geod = _sphere(float(radius))
+    half = 500.0 * float(length_km)
+    lon1, lat1, _ = geod.fwd(lon, lat, float(azimuth) + 180.0, half, return_back_azimuth=True)
+    lon2, lat2, _ = geod.fwd(lon, lat, float(azimuth), half, return_back_azimuth=True)
+    lon1, lon2 = ((float(x) + 180.0) % 360.0 - 180.0 for x in (lon1, lon2))
+    return (float(lat1), lon1), (float(lat2), lon2)
 
 
 def _grid_crs(da, crs):

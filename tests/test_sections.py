@@ -126,3 +126,25 @@ def test_line_azimuths_along_the_equator_and_a_meridian():
     np.testing.assert_allclose(sections.line_azimuths((0.0, -20.0), (0.0, 20.0), 5), 90.0, atol=1e-9)
     np.testing.assert_allclose(sections.line_azimuths((10.0, 5.0), (50.0, 5.0), 5), 0.0, atol=1e-9)
     np.testing.assert_allclose(sections.line_azimuths((50.0, 5.0), (10.0, 5.0), 5), 180.0, atol=1e-9)
+
+
+@pytest.mark.parametrize("centre,azimuth,length", [((48.0, -140.0), 135.0, 3000.0), ((-40.0, 175.0), 80.0, 2500.0),
+                                                   ((10.0, 0.0), 0.0, 1000.0)])
+def test_line_through_is_centred_with_the_given_length_and_direction(centre, azimuth, length):
+    start, end = sections.line_through(centre, azimuth, length)
+    g = sections.great_circle_points(start, end, 101)
+    # the midpoint is the centre, the length is the one asked for (hand formula: slerp, central angle)
+    lat, lon, dist = _slerp(start, end, 101)
+    assert abs(lat[50] - centre[0]) < 1e-9 and abs((lon[50] - centre[1] + 180.0) % 360.0 - 180.0) < 1e-9
+    assert dist[-1] == pytest.approx(length, rel=1e-12)
+    # the direction at the midpoint is the azimuth asked for
+    az = sections.line_azimuths(start, end, 101)[50]
+    assert abs((az - azimuth + 180.0) % 360.0 - 180.0) < 1e-9
+    assert g.distance[-1] == pytest.approx(length, rel=1e-12)
+
+
+@pytest.mark.parametrize("args", [((40.0, 0.0), float("nan"), 100.0), ((40.0, 0.0), 10.0, 0.0),
+                                  ((40.0, 0.0), 10.0, 30000.0), ((100.0, 0.0), 10.0, 100.0)])
+def test_line_through_errors(args):
+    with pytest.raises(sections.InputDataError):
+        sections.line_through(*args)
