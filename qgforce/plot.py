@@ -10,7 +10,8 @@ Functions
 :func:`map_field`
     Filled map of a 2-D field with optional geopotential-height contours and thinned vectors.
 :func:`cross_section`
-    Pressure–distance section of a 3-D field along a great circle.
+    Pressure–distance section of a 3-D field along a great circle, optionally with contours of a
+    second field (e.g. θ) and the in-plane circulation (along-section wind and −ω) as arrows.
 :func:`summary_figure`
     Multi-panel figure of the main forcing terms and ω for one time.
 :func:`save_figure`
@@ -828,7 +829,7 @@ def _format_point(lat: float, lon: float) -> str:
 
 def cross_section(field, start, end, ax=None, *, npoints=100, contours=None, contour_interval=None,
                   robust_percentile=98, symmetric=None, cmap=None, title=None,
-                  log_pressure=True) -> PlotArtists:
+                  log_pressure=True, circulation=None, vertical_exaggeration=None) -> PlotArtists:
     """Vertical cross-section of a 3-D field along the great circle from ``start`` to ``end``.
 
     Parameters
@@ -852,22 +853,39 @@ def cross_section(field, start, end, ax=None, *, npoints=100, contours=None, con
         Logarithmic pressure axis (default), roughly proportional to height since
         z ≈ H ln(p₀/p) with scale height H (hypsometric equation, Wallace & Hobbs 2006, eq. 3.29);
         False for a linear axis.
+    circulation : (u, v, omega), optional
+        3-D wind components [m s-1] (east/north, or grid-relative when marked so) and ω [Pa s-1]
+        on the field's grid, drawn as arrows of the in-plane motion: the wind along the section
+        (:func:`qgforce.sections.along_line_wind`) and −ω (upward).  ``omega`` may be None (no
+        vertical part) or NaN where it is not defined (e.g. outside the inversion domain);
+        arrows are drawn only where both parts are finite.
+    vertical_exaggeration : float, optional
+        Factor on the vertical arrow component; by default the smallest of 1, 2, 5, 10, ... that
+        makes it visible (its value is printed in the arrow key).
 
     Returns
     -------
     PlotArtists
-        ``ax``, ``mesh``, ``colorbar``, ``contours``, ``contour_labels`` and ``section`` (the
-        sampled DataArray with dims ``level``, ``distance``).
+        ``ax``, ``mesh``, ``colorbar``, ``contours``, ``contour_labels``, ``section`` (the
+        sampled DataArray with dims ``level``, ``distance``) and, with ``circulation``,
+        ``quiver`` and ``quiverkey`` (on an overlay axes spanning ``ax``).
 
     Raises
     ------
     GridError
         If the field is not (level, y, x) (the message names any extra dimensions).
+    InputDataError
+        If ``circulation`` is not a triple or ``vertical_exaggeration`` is not positive.
 
     Notes
     -----
     Pressure is shown in hPa increasing downward (the surface at the bottom); the x-axis is the
     distance along the arc in km, with the two end points labelled below it.
+
+    The arrows point along the motion as it appears on the figure: with L the length of the
+    section and the axes as fractions X (distance), Y (upward), dX/dt = u_s / L and, on the log-p
+    axis, dY/dt = −(ω/p) / ln(p_max/p_min), the vertical part multiplied by the exaggeration.  So a
+    trajectory drawn on the figure runs along the arrows (without exaggeration).
     """
     pair = _horizontal_dims(field)
     field = _require_dims(field, ("level",) + pair, "cross_section")
@@ -894,6 +912,22 @@ def cross_section(field, start, end, ax=None, *, npoints=100, contours=None, con
         art.contours, art.contour_labels = _draw_contours(
             ax, np.asarray(csec["distance"].values), np.asarray(csec["level"].values) / 100.0, cvalues,
             _contour_levels(cvalues, contour_interval), {})
+    if circulation is not None:
+        try:
+            cu, cv, comega = circulation
+        except (TypeError, ValueError) as exc:
+            raise InputDataError("circulation must be a triple (u, v, omega) of 3-D DataArrays (omega may be "
+                                 "None)") from exc
+        along = sections.along_line_wind(_require_dims(cu, ("level",) + pair, "cross_section circulation"),
+                                         _require_dims(cv, ("level",) + pair, "cross_section circulation"),
+                                         start, end, npoints)
+        osec = None
+        if comega is not None:
+            comega = _require_dims(comega, ("level",) + _horizontal_dims(comega), "cross_section circulation")
+            osec = sections.sample_along_line(comega, start, end, npoints)
+        from ._section_arrows import draw_circulation
+
+        art.quiver, art.quiverkey, _ = draw_circulation(ax, section, along, osec, log_pressure, vertical_exaggeration)
     if log_pressure:
         ax.set_yscale("log")
     lo, hi = float(p_hpa.min()), float(p_hpa.max())

@@ -1,6 +1,6 @@
 """Sampling of gridded fields along a great-circle line (the data side of cross-sections).
 
-Two public functions:
+Public functions:
 
 :func:`great_circle_points`
     Points equally spaced in central angle along the shorter great-circle arc between two
@@ -9,18 +9,25 @@ Two public functions:
     Any field with horizontal dimensions (``latitude``/``longitude`` or ``y``/``x``) sampled at
     those points, giving a DataArray with a ``distance`` dimension (and ``level`` and any other
     dimensions kept as they were), ready for a vertical cross-section.
+:func:`line_through`
+    The two ends of a line of given length and direction centred on a point.
+:func:`line_azimuths`
+    The direction of travel (azimuth, clockwise from north) at each point of the line.
+:func:`along_line_wind`
+    The horizontal wind component along the line (toward its end), sampled at those points.
 
 The plotting layer (:mod:`qgforce.plot`) only draws what this module returns.
 
+Projected grids take their CRS from the CF ``grid_mapping`` through the one CF-CRS reader of
+the package (``qgforce.io._crs_from_cf``).
+
 References
 ----------
+Karney, C. F. F., 2013: Algorithms for geodesics. *J. Geodesy*, 87, 43-55 (pyproj's
+    :class:`~pyproj.Geod`, used here on a sphere, where geodesics are great circles).
 Williams, E., "Aviation Formulary", section "Intermediate points on a great circle"
-    (https://edwilliams.org/avform147.htm).
-Shoemake, K., 1985: Animating rotation with quaternion curves. *SIGGRAPH Comput. Graph.*,
-    19 (3), 245-254 (the same spherical linear interpolation, "slerp").
-Vincenty, T., 1975: Direct and inverse solutions of geodesics on the ellipsoid with
-    application of nested equations. *Survey Review*, 23 (176), 88-93 (the atan2 form of the
-    central angle, well conditioned for all separations, in its spherical limit).
+    (https://edwilliams.org/avform147.htm): the spherical linear interpolation the tests
+    compare against.
 """
 
 from __future__ import annotations
@@ -35,7 +42,8 @@ import xarray as xr
 from . import constants as C
 from .errors import DataQualityWarning, GridError, InputDataError
 
-__all__ = ["GreatCirclePoints", "great_circle_points", "sample_along_line"]
+__all__ = ["GreatCirclePoints", "great_circle_points", "line_azimuths", "line_through", "sample_along_line",
+           "along_line_wind"]
 
 #: Horizontal dimension pairs of a normalised dataset, (y, x) order.
 _LATLON = ("latitude", "longitude")
@@ -60,13 +68,6 @@ class GreatCirclePoints(NamedTuple):
     distance: np.ndarray
 
 
-def _unit_vector(lat_deg, lon_deg) -> np.ndarray:
-    """Cartesian unit vector(s) (x, y, z) of points on the sphere, stacked on the last axis."""
-    phi = np.deg2rad(lat_deg)
-    lam = np.deg2rad(lon_deg)
-    return np.stack([np.cos(phi) * np.cos(lam), np.cos(phi) * np.sin(lam), np.sin(phi)], axis=-1)
-
-
 def _as_point(point, name: str) -> tuple[float, float]:
     try:
         lat, lon = (float(v) for v in point)
@@ -82,6 +83,14 @@ def _as_point(point, name: str) -> tuple[float, float]:
     return lat, lon
 
 
+@functools.lru_cache(maxsize=4)
+def _sphere(radius: float):
+    """A :class:`pyproj.Geod` on the sphere of ``radius`` metres (cached: one per radius)."""
+    import pyproj
+
+    return pyproj.Geod(a=radius, b=radius)
+
+
 def great_circle_points(start, end, npoints: int = 100, *, radius: float = C.EARTH_RADIUS) -> GreatCirclePoints:
     """Points equally spaced along the shorter great-circle arc from ``start`` to ``end``.
 
@@ -92,7 +101,8 @@ def great_circle_points(start, end, npoints: int = 100, *, radius: float = C.EAR
     npoints : int, optional
         Number of points including both ends (at least 2).
     radius : float, optional
-        Radius of the sphere [m] used for the distances (default the library's Earth radius).
+        Radius of the sphere [m] (default the library's Earth radius,
+        :data:`qgforce.constants.EARTH_RADIUS`).
 
     Returns
     -------
@@ -107,68 +117,92 @@ def great_circle_points(start, end, npoints: int = 100, *, radius: float = C.EAR
 
     Notes
     -----
-    With unit vectors **n₁**, **n₂** of the ends, the central angle is
-    d = atan2(|**n₁** × **n₂**|, **n₁**·**n₂**) (well conditioned for all separations), and the
-    point a fraction f of the way along the arc is the spherical linear interpolation
+    The points come from :meth:`pyproj.Geod.inv_intermediate` on a sphere of ``radius``
+    (Karney 2013): on a sphere the geodesic is the great circle, and the points are equally
+    spaced in arc length, that is in central angle d.  They are the spherical linear
+    interpolation of the unit vectors **n₁**, **n₂** of the ends,
 
         **n**(f) = [sin((1 − f) d) **n₁** + sin(f d) **n₂**] / sin d,
 
-    so that the points lie in the plane of **n₁**, **n₂** and the origin and are equally spaced
-    in central angle (f d).  Latitude and longitude follow as φ = atan2(z, √(x² + y²)),
-    λ = atan2(y, x); the distance along the arc is a f d.
+    with d = atan2(|**n₁** × **n₂**|, **n₁**·**n₂**); the tests check the two against each other
+    to 1e-12°.  The distance along the arc is a f d.
 
     References
     ----------
-    Williams, E., *Aviation Formulary*, "Intermediate points on a great circle".
-    Shoemake (1985), slerp.  Vincenty (1975), central angle.
+    Karney, C. F. F., 2013: Algorithms for geodesics. *J. Geodesy*, 87, 43-55.
+    Williams, E., *Aviation Formulary*, "Intermediate points on a great circle" (the slerp form).
     """
     lat1, lon1 = _as_point(start, "start")
     lat2, lon2 = _as_point(end, "end")
-    if int(npoints) != npoints or npoints < 2:
+    if isinstance(npoints, bool) or not isinstance(npoints, (int, np.integer, float)) or int(npoints) != npoints \
+            or npoints < 2:
         raise InputDataError(f"npoints must be an integer of at least 2 (both ends included); found {npoints!r}")
     npoints = int(npoints)
-    n1 = _unit_vector(lat1, lon1)
-    n2 = _unit_vector(lat2, lon2)
-    sin_d = np.linalg.norm(np.cross(n1, n2))
-    cos_d = float(np.dot(n1, n2))
-    d = float(np.arctan2(sin_d, cos_d))
+    geod = _sphere(float(radius))
+    _, _, dist = geod.inv(lon1, lat1, lon2, lat2, return_back_azimuth=True)
+    d = float(dist) / radius  # central angle [rad]
     if d < 1e-12:
         raise InputDataError(
             f"start {start!r} and end {end!r} are the same point on the sphere; a section needs two "
             f"distinct ends"
         )
-    if sin_d < 1e-9:
+    if np.pi - d < 1e-9:
         raise InputDataError(
             f"start {start!r} and end {end!r} are antipodal: infinitely many great circles join them. "
             f"Split the section at an intermediate point."
         )
-    f = np.linspace(0.0, 1.0, npoints)
-    a = np.sin((1.0 - f) * d) / sin_d
-    b = np.sin(f * d) / sin_d
-    p = a[:, None] * n1[None, :] + b[:, None] * n2[None, :]
-    lat = np.rad2deg(np.arctan2(p[:, 2], np.hypot(p[:, 0], p[:, 1])))
-    lon = np.rad2deg(np.arctan2(p[:, 1], p[:, 0]))
+    line = geod.inv_intermediate(lon1, lat1, lon2, lat2, npts=npoints, initial_idx=0, terminus_idx=0,
+                                 return_back_azimuth=True)
+    lat = np.asarray(line.lats, dtype=np.float64)
+    lon = np.asarray(line.lons, dtype=np.float64)
     # continuous longitudes starting from the caller's longitude of the start point
     lon = lon1 + np.unwrap((lon - lon1 + 180.0) % 360.0 - 180.0, period=360.0)
     lon[0] = lon1
     lat[0], lat[-1] = lat1, lat2
-    return GreatCirclePoints(latitude=lat, longitude=lon, distance=radius * f * d / 1000.0)
+    distance = radius * d * np.linspace(0.0, 1.0, npoints) / 1000.0
+    return GreatCirclePoints(latitude=lat, longitude=lon, distance=distance)
 
 
-def _hashable(value):
-    return tuple(_hashable(v) for v in value) if isinstance(value, (list, tuple, np.ndarray)) else value
+def line_through(centre, azimuth: float, length_km: float, *, radius: float = C.EARTH_RADIUS):
+    """The ends of the great-circle line of ``length_km`` centred on ``centre`` in direction ``azimuth``.
 
+    Parameters
+    ----------
+    centre : (float, float)
+        (latitude, longitude) of the midpoint, degrees.
+    azimuth : float
+        Direction from the start toward the end at the midpoint, degrees clockwise from north.
+    length_km : float
+        Length of the line [km], more than 0 and less than half the circumference.
+    radius : float, optional
+        Radius of the sphere [m].
 
-@functools.lru_cache(maxsize=16)
-def _crs_from_cf(items: tuple):
-    """pyproj CRS of CF grid_mapping attributes, cached (building a CRS costs up to a second)."""
-    import pyproj
+    Returns
+    -------
+    ((float, float), (float, float))
+        ``(start, end)`` as (latitude, longitude) pairs, longitudes in [-180, 180).
 
-    attrs = {k: list(v) if isinstance(v, tuple) else v for k, v in items}
-    try:
-        return pyproj.CRS.from_cf(attrs)
-    except pyproj.exceptions.CRSError:
-        return None
+    Raises
+    ------
+    InputDataError
+        A malformed centre, a non-finite azimuth or a length out of range.
+
+    Notes
+    -----
+    The ends are the direct geodesic problem solved by :meth:`pyproj.Geod.fwd` on the sphere
+    (Karney 2013): half the length along ``azimuth`` and half along ``azimuth + 180°``.
+    """
+    lat, lon = _as_point(centre, "centre")
+    half_circumference_km = np.pi * radius / 1000.0
+    if not (np.isfinite(azimuth) and np.isfinite(length_km) and 0.0 < length_km < half_circumference_km):
+        raise InputDataError(f"a line needs a finite azimuth and a length between 0 and {half_circumference_km:.0f} km; "
+                             f"found azimuth {azimuth!r}, length {length_km!r} km")
+    geod = _sphere(float(radius))
+    half = 500.0 * float(length_km)
+    lon1, lat1, _ = geod.fwd(lon, lat, float(azimuth) + 180.0, half, return_back_azimuth=True)
+    lon2, lat2, _ = geod.fwd(lon, lat, float(azimuth), half, return_back_azimuth=True)
+    lon1, lon2 = ((float(x) + 180.0) % 360.0 - 180.0 for x in (lon1, lon2))
+    return (float(lat1), lon1), (float(lat2), lon2)
 
 
 def _grid_crs(da, crs):
@@ -179,7 +213,12 @@ def _grid_crs(da, crs):
         return pyproj.CRS.from_user_input(crs)
     name = da.attrs.get("grid_mapping") or da.encoding.get("grid_mapping")
     if name and name in da.coords:
-        return _crs_from_cf(tuple(sorted((k, _hashable(v)) for k, v in da.coords[name].attrs.items())))
+        from .io import _crs_from_cf, _hashable
+
+        try:
+            return _crs_from_cf(tuple(sorted((str(k), _hashable(v)) for k, v in da.coords[name].attrs.items())))
+        except (pyproj.exceptions.CRSError, KeyError, TypeError, ValueError):
+            return None  # unreadable grid mapping: fall back on the 2-D latitude/longitude
     return None
 
 
@@ -353,3 +392,82 @@ def sample_along_line(da, start, end, npoints: int = 100, *, crs=None) -> xr.Dat
     out.attrs["qgforce_section_start"] = [float(v) for v in start]
     out.attrs["qgforce_section_end"] = [float(v) for v in end]
     return out
+
+
+def line_azimuths(start, end, npoints: int = 100, *, radius: float = C.EARTH_RADIUS) -> np.ndarray:
+    """Azimuth of the direction of travel at each point of :func:`great_circle_points`.
+
+    Parameters
+    ----------
+    start, end, npoints, radius
+        As for :func:`great_circle_points`.
+
+    Returns
+    -------
+    ndarray
+        Degrees clockwise from north, in (−180, 180], of length ``npoints``: the forward azimuth
+        of the geodesic from each point toward ``end`` (at ``end`` itself, the back azimuth from
+        ``end`` to ``start`` turned by 180°).
+
+    Notes
+    -----
+    Azimuths from :meth:`pyproj.Geod.inv` on the sphere (Karney 2013).  On a great circle the
+    azimuth toward the end is the tangent direction of the line itself.
+    """
+    line = great_circle_points(start, end, npoints, radius=radius)
+    geod = _sphere(float(radius))
+    lat, lon = line.latitude, line.longitude
+    az = np.empty(lat.size)
+    az[:-1], _, _ = geod.inv(lon[:-1], lat[:-1], np.full(lat.size - 1, lon[-1]), np.full(lat.size - 1, lat[-1]),
+                             return_back_azimuth=True)
+    _, back, _ = geod.inv(lon[0], lat[0], lon[-1], lat[-1], return_back_azimuth=True)
+    az[-1] = float(back) + 180.0
+    return 180.0 - (180.0 - az) % 360.0  # into (-180, 180]
+
+
+def along_line_wind(u, v, start, end, npoints: int = 100, *, crs=None) -> xr.DataArray:
+    """The horizontal wind component along the great circle from ``start`` to ``end``.
+
+    Parameters
+    ----------
+    u, v : xarray.DataArray
+        Wind components on the same grid, eastward/northward (or along the grid axes of a
+        projected grid when ``u.attrs["wind_relative_to"] == "grid"``: they are turned to
+        east/north first with :func:`qgforce.kinematics.earth_relative_wind`).
+    start, end, npoints, crs
+        As for :func:`sample_along_line`.
+
+    Returns
+    -------
+    xarray.DataArray
+        u_s = u sin α + v cos α [m s-1], with α the azimuth of the line at each point
+        (:func:`line_azimuths`): positive from ``start`` toward ``end``.  Dims and coordinates as
+        :func:`sample_along_line` returns them.
+
+    Raises
+    ------
+    GridError
+        See :func:`sample_along_line`; also when ``u`` and ``v`` differ in dims.
+
+    Notes
+    -----
+    The components are sampled first and combined at the points (both operations are linear,
+    so the order does not matter for bilinear interpolation).  The tests check the result on a
+    rigid rotation of the sphere about the pole of the line, whose along-line component is the
+    same everywhere on it (Ω a).
+    """
+    if u.dims != v.dims:
+        raise GridError(f"u and v must have the same dimensions; found {u.dims} and {v.dims}")
+    if u.attrs.get("wind_relative_to") == "grid" and "x" in u.dims:
+        from .kinematics import earth_relative_wind
+
+        u, v = earth_relative_wind(u, v)
+    us = sample_along_line(u, start, end, npoints, crs=crs)
+    vs = sample_along_line(v, start, end, npoints, crs=crs)
+    alpha = xr.DataArray(np.deg2rad(line_azimuths(start, end, npoints)), dims="distance")
+    out = us * np.sin(alpha) + vs * np.cos(alpha)
+    out.attrs = {"units": u.attrs.get("units", "m s-1"), "long_name": "wind component along the section",
+                 "qgforce_positive": "from the start of the section toward its end",
+                 "qgforce_section_start": us.attrs["qgforce_section_start"],
+                 "qgforce_section_end": us.attrs["qgforce_section_end"]}
+    return out.rename("along_section_wind")
