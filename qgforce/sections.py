@@ -19,7 +19,7 @@ Public functions:
 The plotting layer (:mod:`qgforce.plot`) only draws what this module returns.
 
 Projected grids take their CRS from the CF ``grid_mapping`` through the one CF-CRS reader of
-the package (``qgforce.io._crs_from_cf``).
+the package (``qgforce.io.crs_from_cf``).
 
 References
 ----------
@@ -213,11 +213,12 @@ def _grid_crs(da, crs):
         return pyproj.CRS.from_user_input(crs)
     name = da.attrs.get("grid_mapping") or da.encoding.get("grid_mapping")
     if name and name in da.coords:
-        from .io import _crs_from_cf, _hashable
+        from .errors import GridError
+        from .io import crs_from_cf
 
         try:
-            return _crs_from_cf(tuple(sorted((str(k), _hashable(v)) for k, v in da.coords[name].attrs.items())))
-        except (pyproj.exceptions.CRSError, KeyError, TypeError, ValueError):
+            return crs_from_cf(da.coords[name].attrs)
+        except GridError:
             return None  # unreadable grid mapping: fall back on the 2-D latitude/longitude
     return None
 

@@ -59,14 +59,14 @@ def test_projected_sampling_reads_the_crs_through_the_io_helper(monkeypatch):
     cf = {"grid_mapping_name": "lambert_conformal_conic", "standard_parallel": [40.0, 60.0],
           "longitude_of_central_meridian": 10.0, "latitude_of_projection_origin": 50.0, "earth_radius": R}
     calls = []
-    real = qio._crs_from_cf
+    real = qio.crs_from_cf
 
-    def counting(items):
-        calls.append(items)
-        return real(items)
+    def counting(attrs):
+        calls.append(attrs)
+        return real(attrs)
 
-    monkeypatch.setattr(qio, "_crs_from_cf", counting)
-    crs = real(tuple(sorted((k, qio._hashable(v)) for k, v in cf.items())))
+    monkeypatch.setattr(qio, "crs_from_cf", counting)
+    crs = real(cf)
     import pyproj
 
     x = np.arange(-6e5, 6.01e5, 1e5)
@@ -77,7 +77,7 @@ def test_projected_sampling_reads_the_crs_through_the_io_helper(monkeypatch):
                               "longitude": (("y", "x"), lon), "lambert": ((), 0, cf)},
                       attrs={"grid_mapping": "lambert"})
     s = sections.sample_along_line(da, (47.0, 5.0), (53.0, 15.0), npoints=9)
-    assert calls, "the CRS was not read through qgforce.io._crs_from_cf"
+    assert calls, "the CRS was not read through qgforce.io.crs_from_cf"
     assert not hasattr(sections, "_crs_from_cf")  # one CF-CRS reader in the package
     qx, qy = pyproj.Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True).transform(
         s["longitude"].values, s["latitude"].values)

@@ -288,7 +288,7 @@ def write_run_page(output_dir, maps, *, title: str | None = None, overwrite: boo
     names, so the page works from the file system (``file://``) and when the directory is moved
     or served.  Written atomically (a temporary file beside it, then moved over it).
     """
-    from ..workflow import atomic_output
+    from ..output.atomic import atomic_path
 
     output_dir = Path(os.path.expanduser(os.fspath(output_dir)))
     if not output_dir.is_dir():
@@ -298,6 +298,6 @@ def write_run_page(output_dir, maps, *, title: str | None = None, overwrite: boo
     if path.exists() and not overwrite:
         raise InputDataError(f"{str(path)!r} exists; pass --overwrite (overwrite=True) to replace it")
     text = _page(records, title or f"qgforce run: {output_dir.resolve().name}")
-    with atomic_output(path) as tmp:  # the one write of the page
+    with atomic_path(path, overwrite=True) as tmp:  # the one write of the page
         tmp.write_text(text, encoding="utf-8")
     return path

@@ -76,7 +76,7 @@ def section_file_name(prefix: str, field: str, time=None) -> str:
     >>> section_file_name("section", "omega_total", np.datetime64("2046-11-19T06:00"))
     'section_omega_total_20461119T0600.png'
     """
-    from ..workflow import map_file_name
+    from .maps import map_file_name
 
     return map_file_name(f"{prefix}_{field}", None, time)
 
@@ -117,7 +117,7 @@ def _chosen_fields(results: xr.Dataset, fields) -> list[str]:
 
 def _steps(results: xr.Dataset, time) -> list:
     """``(index, value)`` of the times to draw (``[(None, None)]`` without a time coordinate)."""
-    from ..workflow import select_times
+    from .choices import select_times
 
     tdim = _time_dim(results)
     if tdim is None:
@@ -142,9 +142,9 @@ def _at(ds: xr.Dataset | None, name: str, tdim: str | None, value):
 def _save_png(fig, path: Path, dpi: float) -> None:
     import matplotlib
 
-    from ..workflow import atomic_output
+    from ..output.atomic import atomic_path
 
-    with atomic_output(path) as tmp, matplotlib.rc_context({"savefig.bbox": "standard"}):  # the one write
+    with atomic_path(path, overwrite=True) as tmp, matplotlib.rc_context({"savefig.bbox": "standard"}):  # the one write
         fig.savefig(tmp, format="png", dpi=dpi)
 
 
@@ -172,20 +172,20 @@ def draw_section(results: xr.Dataset, start, end, output_dir, *, inputs: xr.Data
     Parameters
     ----------
     results : xarray.Dataset
-        Diagnostics on pressure levels, from :func:`qgforce.workflow.build_results` (may be lazy;
+        Diagnostics on pressure levels, from :func:`qgforce.jobs.compute.build_results` (may be lazy;
         computed one time at a time).  ``omega_total`` is used for the circulation when present.
     start, end : (float, float) or str
         Ends of the section, ``(latitude, longitude)`` in degrees or ``"LAT,LON"``.
     output_dir : str or os.PathLike
         Directory of the PNG files (created; its parent must exist).
     inputs : xarray.Dataset, optional
-        The normalised input dataset (:func:`qgforce.workflow.open_inputs`): its ``temperature``
+        The normalised input dataset (:func:`qgforce.jobs.describe.open_inputs`): its ``temperature``
         gives the potential-temperature contours (θ = T (p₀/p)^κ, :func:`qgforce.thermo.potential_temperature`),
         its ``u`` and ``v`` the along-section wind of the circulation arrows.
     fields : sequence of str, optional
         Result names to draw; default those of :data:`SECTION_FIELDS` present in ``results``.
     time : optional
-        Times to draw (see :func:`qgforce.workflow.select_times`); default every time.
+        Times to draw (see :func:`qgforce.jobs.choices.select_times`); default every time.
     npoints : int
         Points along the section, both ends included (2 to 2000).
     prefix : str
@@ -365,7 +365,8 @@ def run_section(opts) -> int:
         Every user error (missing ``--start``/``--end`` or files, bad values, fields that cannot be
         computed, existing files): the command line reports it in one line and exits 2.
     """
-    from ..workflow import build_results, expand_sources, open_inputs
+    from .compute import build_results
+    from .describe import expand_sources, open_inputs
 
     given = dict(opts) if isinstance(opts, Mapping) else vars(opts)
     o = {k: (given.get(k) if given.get(k) is not None else d) for k, d in _DEFAULTS.items()}
