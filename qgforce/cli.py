@@ -98,7 +98,7 @@ _OPTIONS = {o.dest: o for o in (
             "names", metavar="CANONICAL=NAME,..."),
     _Option("summary", ("--summary",), "also one summary figure per time", "bool", default=True),
     _Option("dpi", ("--dpi",), "dots per inch of the PNG files", "float", default=100, metavar="N"),
-    _Option("width_px", ("--width-px",), "width of the PNG files in pixels (height keeps the aspect ratio)",
+    _Option("width_px", ("--width-px",), "width of the PNG files in pixels: each figure is scaled to it, keeping its layout and aspect ratio (--dpi is then not used)",
             "int", metavar="N"),
     _Option("projection", ("--projection",), "map axes: auto (cartopy when installed) or plain longitude-latitude "
             "axes (much faster)", "choice", default="auto", choices=("auto", "plain")),

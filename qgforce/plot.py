@@ -38,9 +38,7 @@ with degree labels.
 from __future__ import annotations
 
 import math
-import os
 import re
-import secrets
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -1015,7 +1013,7 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
     ncols : int, optional
         Panels per row (default 3; 4 for 7 or 8 panels).
     figsize : (float, float), optional
-        Inches; default 4.3 × 4.0 per panel.
+        Inches; default 4.6 × 3.9 per panel plus 0.6 for the title and the caution line.
     projection : cartopy.crs.Projection or False, optional
         As for :func:`map_field`, shared by all panels.
     options : mapping, optional
@@ -1114,35 +1112,19 @@ def save_figure(fig, path, dpi: float = 100) -> Path:
 
     Notes
     -----
-    The figure is saved to a uniquely named temporary file in the target's directory,
-    flushed to disk, then moved over the target with :func:`os.replace` (atomic on POSIX and
-    Windows within one file system), so a crash leaves either the old file or the new one,
-    never a truncated image; on error the temporary file is removed.  The image is saved with
+    Written by the package's one atomic writer (:func:`qgforce.output.atomic_path`, replacing an
+    existing file): a temporary file beside the target, flushed, then moved over it, so a crash
+    leaves either the old file or the new one, never a truncated image; on error or SIGTERM the
+    temporary file is removed.  The image is saved with
     the standard bounding box (never ``bbox_inches="tight"``, whatever the rcParams say), so a
     raster image is exactly ``figsize × dpi`` pixels (rounded to whole pixels).
     """
     import matplotlib
 
+    from .output.atomic import atomic_path
+
     path = Path(path)
     fmt = path.suffix.lstrip(".").lower() or matplotlib.rcParams["savefig.format"]
-    directory = path.parent if str(path.parent) else Path(".")
-    while True:
-        tmp = directory / f".{path.name}.{secrets.token_hex(6)}.tmp"
-        try:
-            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)  # umask applies
-            break
-        except FileExistsError:
-            continue
-    try:
-        with os.fdopen(fd, "wb") as fh, matplotlib.rc_context({"savefig.bbox": "standard"}):
-            fig.savefig(fh, format=fmt, dpi=dpi)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
+    with atomic_path(path, overwrite=True) as tmp, matplotlib.rc_context({"savefig.bbox": "standard"}):
+        fig.savefig(tmp, format=fmt, dpi=dpi)
     return path

@@ -379,8 +379,8 @@ def test_maps_names_pixel_sizes_and_refusal(small, tmp_path, capsys):
     for name in (f"omega_total_500hPa_{t}.png", f"frontogenesis_500hPa_{t}.png"):
         assert mpimg.imread(out / name).shape[:2] == (round(333 * h_in / w_in), 333)
     # ... and the summary's: 7 panels (the six forcing/omega panels and hours to saturation), 4 per row,
-    # 4.3 x 4.0 in each plus 0.5 in (plot.summary_figure docstring)
-    assert mpimg.imread(out / f"summary_{t}.png").shape[:2] == (round(333 * (2 * 4.0 + 0.5) / (4 * 4.3)), 333)
+    # 4.6 x 3.9 in each plus 0.6 in (plot.summary_figure docstring)
+    assert mpimg.imread(out / f"summary_{t}.png").shape[:2] == (round(333 * (2 * 3.9 + 0.6) / (4 * 4.6)), 333)
     before = {p.name: p.read_bytes() for p in out.iterdir()}
     assert main(argv) == 2  # refusal to overwrite, checked before anything is drawn
     assert_one_error_line(capsys.readouterr().err, "--overwrite")

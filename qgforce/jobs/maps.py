@@ -154,12 +154,21 @@ def _check_map_outputs(jobs, output_dir: Path, overwrite: bool) -> None:
         )
 
 
-def _size_figure(fig, dpi: float, width_px: int | None) -> None:
+def _size_figure(fig, dpi: float, width_px: int | None) -> float:
+    """The dpi at which ``fig`` is saved: ``dpi``, or the one that makes it ``width_px`` wide.
+
+    With ``width_px`` the figure keeps its size in inches (so its layout, fonts and colour bars
+    keep their proportions) and is rendered at ``width_px`` / width dpi; its size is nudged by a
+    hundredth of a pixel so that the renderer's whole-pixel truncation gives exactly ``width_px``
+    by round(``width_px`` × height / width) pixels.
+    """
     if width_px is None:
-        return
+        return dpi
     w, h = fig.get_size_inches()
     height_px = max(1, round(width_px * h / w))
-    fig.set_size_inches(width_px / dpi, height_px / dpi)
+    scaled = width_px / w
+    fig.set_size_inches((width_px + 0.01) / scaled, (height_px + 0.01) / scaled)
+    return scaled
 
 
 def _draw_one(step: xr.Dataset, job: _MapJob, projection):
@@ -200,7 +209,8 @@ def draw_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summ
     dpi : float
         Dots per inch; without ``width_px`` the image is the figure size × dpi pixels.
     width_px : int, optional
-        Image width in pixels; the height keeps the figure's aspect ratio (rounded).
+        Image width in pixels; the height keeps the figure's aspect ratio (rounded).  The figure
+        keeps its layout and is scaled to that width (``dpi`` is then not used).
     overwrite : bool
         Replace existing PNG files of the same names.
     projection : "auto", "plain", or a cartopy projection
@@ -255,8 +265,7 @@ def draw_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summ
                 cached_index = job.time_index
             fig = _draw_one(step, job, proj)
             try:
-                _size_figure(fig, dpi, width_px)
-                plot.save_figure(fig, job.path, dpi=dpi)
+                plot.save_figure(fig, job.path, dpi=_size_figure(fig, dpi, width_px))
             finally:
                 plt.close(fig)
             written.append(job.path)
