@@ -11,6 +11,7 @@ import socket
 import subprocess
 import sys
 import warnings
+from pathlib import Path
 
 import matplotlib
 
@@ -599,8 +600,8 @@ def test_save_figure_failure_leaves_old_file_and_no_temporary(tmp_path, monkeypa
     target = tmp_path / "fig.png"
     target.write_bytes(b"old")
 
-    def broken_savefig(fh, **kwargs):
-        fh.write(b"\x89PNG half")
+    def broken_savefig(fname, **kwargs):  # half an image written to the temporary path, then a failure
+        Path(fname).write_bytes(b"\x89PNG half")
         raise RuntimeError("disk full")
 
     monkeypatch.setattr(fig, "savefig", broken_savefig)
