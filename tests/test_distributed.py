@@ -113,8 +113,10 @@ def test_memory_depends_on_the_chunk_not_the_record(tmp_path):
     # the results of one step are 31 fields (7.75 chunks): holding the 6-step record would take
     # 6 x 7.75 = 46 chunks; the working set of one step stays within 20 chunks
     assert peak_short < 20 * chunk, peak_short / chunk
-    # three times the record, (nearly) the same peak: it does not grow with the record length
-    assert peak_long < 1.25 * peak_short, (peak_short / chunk, peak_long / chunk)
+    # three times the record, (nearly) the same peak: it does not grow with the record length (a peak
+    # that grew with it would be about 3x; measured 1.09-1.27x on a loaded 2-core machine, where the
+    # threads' progress, hence the chunks in flight, vary from run to run)
+    assert peak_long < 1.5 * peak_short, (peak_short / chunk, peak_long / chunk)
     print(f"peak while writing: {peak_short / chunk:.1f} chunks (2 steps), {peak_long / chunk:.1f} chunks (6 steps)")
 
 
