@@ -253,7 +253,7 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
             ug, qx, qy, qnx, qny = (o[17], o[3], o[4], o[5], o[6]) if direct else spare
             latlon_level(T[s], PHI[s], U[s], V[s], fx, fy, full_t, full_f, cor.kind == "local", grid.periodic_x,
                          *geometry, float(k_rp[s]), float(c_theta[s]), float(cor.f0),
-                         ug, o[18], zeta, at, qx, qy, qnx, qny, o)
+                         ug, o[18], zeta, at, qx, qy, qnx, qny, o, not direct)
 
     bounds = np.linspace(0, n, threads + 1).astype(int)
     if threads == 1:

@@ -1,12 +1,18 @@
 """Compiled (numba) kernels of the forcing set on lat–lon grids: one level per call, then ∂/∂p.
 
 :func:`latlon_level` reads T, Φ (and u, v) of one level and writes every horizontal output of
-:func:`qgforce.forcing.forcing_terms` into preallocated arrays, in three sweeps over the level:
+:func:`qgforce.forcing.forcing_terms` into preallocated arrays, in three sweeps over the rows:
 
-1. the geostrophic wind (u_g, v_g) = (1/f) k × ∇Φ;
-2. ζ_g (∇²Φ/f0, or the curl of V_g with local f), then, point by point, ∇T, ∇ζ_g, the
-   velocity-gradient tensors, A_T, A_η, Q and its partition and Petterssen's frontogenesis;
+1. the geostrophic wind (u_g, v_g) = (1/f) k × ∇Φ and ζ_g (∇²Φ/f0, or the curl of V_g with local f);
+2. per row, the first derivatives (∇T, ∇ζ_g, the velocity-gradient tensors) into contiguous row
+   buffers, then A_T, A_η, Q and its partition and Petterssen's frontogenesis in a few short loops;
 3. the second derivatives of derived fields: ∇²A_T and ∇·Q, ∇·Q_n.
+
+Speed: every inner loop runs over the contiguous x of one row with the row's metric factors
+hoisted, specialised to one stencil form (centred, non-uniform or one-sided, chosen per row;
+the zonal edge columns and the pole rows are handled outside the loops), with no call and no
+branch that is not a select, so that LLVM vectorises it (``error_model="numpy"``: no
+division-by-zero checks; the arctangent is a branch-free polynomial, :func:`_atan`).
 
 The vertical terms (∂/∂p of A_η and v_g) follow in a second pass over the levels, by the labelled
 operators of :mod:`qgforce.forcing` on the float64 A_η and v_g written here.
@@ -30,6 +36,8 @@ Hoskins, B. J., I. Draghici and H. C. Davies, 1978: A new look at the ω-equatio
     Q. J. R. Meteorol. Soc., 104, 31–38.
 Keyser, D., M. J. Reeder and R. J. Reed, 1988: A generalization of Petterssen's frontogenesis
     function and its relation to the forcing of vertical motion. Mon. Wea. Rev., 116, 762–780.
+Moshier, S. L., 1989: Methods and Programs for Mathematical Functions. Prentice Hall, 415 pp.
+    (the Cephes library; the arctangent of :func:`_atan`).
 """
 
 from __future__ import annotations
@@ -41,8 +49,8 @@ import numpy as np
 
 __all__ = ["latlon_level", "N_OUT", "N_ROW"]
 
-_JIT = dict(nogil=True, cache=True)
-_INNER = dict(nogil=True)
+_JIT = dict(nogil=True, cache=True, error_model="numpy")
+_INNER = dict(nogil=True, error_model="numpy")
 
 #: number of per-level outputs of :func:`latlon_level` (order documented there)
 N_OUT = 19
@@ -56,6 +64,35 @@ _IHX, _IHY, _MX, _HX, _HY, _IAREA, _IF, _MASK, _XFAC, _ONE = range(N_ROW)
 # rows of the first-derivative buffer (completed values of one row, before any pole extrapolation)
 _TX, _ZX, _UX, _VX, _UY, _VY, _FUX, _FVX, _FUY, _FVY = range(10)
 N_FIRST = 10
+
+
+# Cephes double-precision arctangent (Moshier 1989): range reduction to |t| ≤ tan(π/8)·(1+ε) with
+# tan(3π/8) and π/4 offsets, then t + t³ P(t²)/Q(t²).  Written branch-free (selects) so that the
+# loop that calls it vectorises.  The coefficients are written from memory and checked: within 1 ulp
+# of the C library's atan (tests/test_forcing_kernels.py).
+_T3P8 = 2.41421356237309504880  # tan(3π/8)
+_MOREBITS = 6.123233995736765886130e-17  # π/2 − fl(π/2)
+_AP = (-8.750608600031904122785e-1, -1.615753718733365076637e1, -7.500855792314704667340e1,
+       -1.228866684490136173410e2, -6.485021904942025371773e1)
+_AQ = (2.485846490142306297962e1, 1.650270098316988542046e2, 4.328810604912902668951e2,
+       4.853903996359136964868e2, 1.945506571482613964425e2)
+
+
+@numba.njit(inline="always", **_INNER)
+def _atan(x):
+    """arctan(x) in radians (Cephes ``atan``, branch-free; within 1 ulp of the C library)."""
+    ax = abs(x)
+    big = ax > _T3P8
+    mid = ax > 0.66
+    num = -1.0 if big else (ax - 1.0 if mid else ax)
+    den = ax if big else (ax + 1.0 if mid else 1.0)
+    y0 = np.pi / 2 if big else (np.pi / 4 if mid else 0.0)
+    extra = _MOREBITS if big else (0.5 * _MOREBITS if mid else 0.0)
+    t = num / den
+    z = t * t
+    p = (((_AP[0] * z + _AP[1]) * z + _AP[2]) * z + _AP[3]) * z + _AP[4]
+    q = ((((z + _AQ[0]) * z + _AQ[1]) * z + _AQ[2]) * z + _AQ[3]) * z + _AQ[4]
+    return math.copysign(y0 + (t * (z * p / q) + t + extra), x)
 
 
 @numba.njit(**_INNER)
@@ -191,112 +228,123 @@ def _first_rows(T, zeta, ug, vg, U, V, j, full_f, R, periodic, xw, inv2hx, yidx,
 
 
 @numba.njit(**_INNER)
-def _pointwise_row(j, B, ty_r, zy_r, ug, vg, U, V, FX, FY, full_t, full_f, k_rp, c_theta, at, qx, qy, qnx, qny, out):
-    """Row ``j`` of A_T, A_η, Q and its partition and Petterssen's frontogenesis from first derivatives."""
+def _pointwise_row(j, B, ty_r, zy_r, cp_r, sp_r, ug, vg, U, V, FX, FY, full_t, full_f, k_rp, c_theta, at, qx, qy,
+                   qnx, qny, out, store_work):
+    """Row ``j`` of A_T, A_η, Q and its partition and Petterssen's frontogenesis from first derivatives.
+
+    Several short loops, each over a few contiguous rows with no call and no branch that a select
+    cannot express (so that LLVM vectorises them); ``cp_r``, ``sp_r`` are scratch rows.  The work
+    arrays ``qx, qy, qnx, qny`` and ``ug`` are copied to their outputs when ``store_work`` (they are
+    distinct from them).
+    """
+    n = ty_r.size
     tx_r = B[_TX]
-    zx_r = B[_ZX]
     ux_r = B[_UX]
     vx_r = B[_VX]
     uy_r = B[_UY]
     vy_r = B[_VY]
-    if full_f:
-        fux_r = B[_FUX]
-        fvx_r = B[_FVX]
-        fuy_r = B[_FUY]
-        fvy_r = B[_FVY]
-    else:
-        fux_r = ux_r
-        fvx_r = vx_r
-        fuy_r = uy_r
-        fvy_r = vy_r
     ug_r = ug[j]
     vg_r = vg[j]
-    U_r = U[j]
-    V_r = V[j]
+    # advection: −(u (sx + fx) + v (sy + fy))
+    at_r = at[j]
+    zx_r = B[_ZX]
     fx_r = FX[j]
     fy_r = FY[j]
-    at_r = at[j]
+    o1 = out[1][j]
+    for i in range(n):
+        u = ug_r[i]
+        v = vg_r[i]
+        at_r[i] = -(u * tx_r[i] + v * ty_r[i])
+        o1[i] = -(u * (zx_r[i] + fx_r[i]) + v * (zy_r[i] + fy_r[i]))
+    o0 = out[0][j]
+    if full_t:
+        U_r = U[j]
+        V_r = V[j]
+        for i in range(n):
+            o0[i] = -(U_r[i] * tx_r[i] + V_r[i] * ty_r[i])
+    else:
+        for i in range(n):
+            o0[i] = at_r[i]
+    # Q and its partition
     qx_r = qx[j]
     qy_r = qy[j]
     qnx_r = qnx[j]
     qny_r = qny[j]
-    o0, o1, o3, o4, o5, o6, o7, o8 = out[0][j], out[1][j], out[3][j], out[4][j], out[5][j], out[6][j], out[7][j], out[8][j]
-    o12, o13, o14, o15, o16, o17, o18 = out[12][j], out[13][j], out[14][j], out[15][j], out[16][j], out[17][j], out[18][j]
-    for i in range(tx_r.size):
+    o7 = out[7][j]
+    o8 = out[8][j]
+    for i in range(n):
         tx = tx_r[i]
         ty = ty_r[i]
-        u = ug_r[i]
-        v = vg_r[i]
-        ux = ux_r[i]
-        vx = vx_r[i]
-        uy = uy_r[i]
-        vy = vy_r[i]
-        # advection: −(u (sx + fx) + v (sy + fy))
-        a_t = -(u * tx + v * ty)
-        at_r[i] = a_t
-        if full_t:
-            o0[i] = -(U_r[i] * tx + V_r[i] * ty)
-        else:
-            o0[i] = a_t
-        o1[i] = -(u * (zx_r[i] + fx_r[i]) + v * (zy_r[i] + fy_r[i]))
-        # Q and its partition
-        x = (ux * tx + vx * ty) * k_rp
-        y = (uy * tx + vy * ty) * k_rp
+        x = (ux_r[i] * tx + vx_r[i] * ty) * k_rp
+        y = (uy_r[i] * tx + vy_r[i] * ty) * k_rp
         g2 = tx * tx + ty * ty
-        if g2 == 0.0:
-            c = x * 0.0 + y * 0.0
-        else:
-            c = (x * tx + y * ty) / g2
+        c = x * 0.0 + y * 0.0 if g2 == 0.0 else (x * tx + y * ty) / g2
         nxv = c * tx
         nyv = c * ty
         qx_r[i] = x
         qy_r[i] = y
         qnx_r[i] = nxv
         qny_r[i] = nyv
-        o3[i] = x
-        o4[i] = y
-        o5[i] = nxv
-        o6[i] = nyv
         o7[i] = x - nxv
         o8[i] = y - nyv
-        # Petterssen frontogenesis and its parts
-        fux = fux_r[i]
-        fvx = fvx_r[i]
-        fuy = fuy_r[i]
-        fvy = fvy_r[i]
-        gx = tx * c_theta
-        gy = ty * c_theta
+    if store_work:
+        o3 = out[3][j]
+        o4 = out[4][j]
+        o5 = out[5][j]
+        o6 = out[6][j]
+        o17 = out[17][j]
+        for i in range(n):
+            o3[i] = qx_r[i]
+            o4[i] = qy_r[i]
+            o5[i] = qnx_r[i]
+            o6[i] = qny_r[i]
+            o17[i] = ug_r[i]
+    # Petterssen frontogenesis and its parts
+    if full_f:
+        ux_r = B[_FUX]
+        vx_r = B[_FVX]
+        uy_r = B[_FUY]
+        vy_r = B[_FVY]
+    o12 = out[12][j]
+    o13 = out[13][j]
+    o14 = out[14][j]
+    o16 = out[16][j]
+    for i in range(n):
+        ux = ux_r[i]
+        vx = vx_r[i]
+        uy = uy_r[i]
+        vy = vy_r[i]
+        gx = tx_r[i] * c_theta
+        gy = ty_r[i] * c_theta
         gxx = gx * gx
         gyy = gy * gy
         gxy = gx * gy
         g = math.sqrt(gxx + gyy)
         inv_g = 0.0 if g == 0.0 else 1.0 / g
-        shear = fvx + fuy
-        stretch = fux - fvy
-        o12[i] = -((gxx * fux + gxy * shear + gyy * fvy) * inv_g)
+        shear = vx + uy
+        stretch = ux - vy
+        o12[i] = -((gxx * ux + gxy * shear + gyy * vy) * inv_g)
         diff = gxx - gyy
         gxy2 = gxy * 2.0
         cos_part = stretch * diff + shear * gxy2
-        sin_part = stretch * gxy2 - shear * diff
-        o13[i] = (fux + fvy) * g * -0.5
+        sp_r[i] = stretch * gxy2 - shear * diff
+        o13[i] = (ux + vy) * g * -0.5
         o14[i] = cos_part * inv_g * -0.5
-        r = math.sqrt(cos_part * cos_part + sin_part * sin_part) - cos_part
-        if g == 0.0 or (stretch == 0.0 and shear == 0.0):
-            ang = np.nan
-        elif r == 0.0:
-            ang = 90.0
-        else:
-            ang = math.atan(-(sin_part / r)) * _DEG
-        o15[i] = ang
         o16[i] = g
-        o17[i] = u
-        o18[i] = v
+        # the angle is undefined (NaN) without a gradient or without deformation
+        cp_r[i] = np.nan if (g == 0.0 or (stretch == 0.0 and shear == 0.0)) else cos_part
+    o15 = out[15][j]
+    for i in range(n):
+        cos_part = cp_r[i]
+        sin_part = sp_r[i]
+        r = math.sqrt(cos_part * cos_part + sin_part * sin_part) - cos_part
+        o15[i] = 90.0 if r == 0.0 else _atan(-(sin_part / r)) * _DEG
 
 
 @numba.njit(**_JIT)
 def latlon_level(T, PHI, U, V, FX, FY, full_t, full_f, local, periodic, xw, inv2hx, yidx, yw, ymode, inv2hy, R,
                  indptr, indices, data, pj, pj1, pj2, pt, ccos, cdphi, carea, k_rp, c_theta, f0,
-                 ug, vg, zeta, at, qx, qy, qnx, qny, out):
+                 ug, vg, zeta, at, qx, qy, qnx, qny, out, store_work):
     """Every horizontal forcing output of one level on a lat–lon grid.
 
     Parameters
@@ -326,7 +374,10 @@ def latlon_level(T, PHI, U, V, FX, FY, full_t, full_f, local, periodic, xw, inv2
     k_rp, c_theta, f0 : float
         −R_d/p, (p0/p)^κ and (unused when ``local``) f0 of the level.
     ug, vg, zeta, at, qx, qy, qnx, qny : 2-D float64
-        Work arrays (may be the float64 outputs themselves).
+        Work arrays: vg is the output v_geostrophic (always float64); ug, qx, qy, qnx, qny are the
+        outputs u_geostrophic, q_vector_x, q_vector_y, qn_x, qn_y themselves unless ``store_work``.
+    store_work : bool
+        Copy ug, qx, qy, qnx, qny to their outputs (which are then float32 arrays, or distinct).
     out : tuple of 19 2-D arrays (float64 or float32, stored as computed in float64)
         temperature_advection, vorticity_advection, thermal_advection_term, q_vector_x,
         q_vector_y, qn_x, qn_y, qs_x, qs_y, q_vector_forcing, qn_forcing, qs_forcing,
@@ -406,8 +457,8 @@ def latlon_level(T, PHI, U, V, FX, FY, full_t, full_f, local, periodic, xw, inv2
         for i in range(nx):
             ty[i] = ty[i] * ihy
             zy[i] = zy[i] * ihy
-        _pointwise_row(j, B, ty, zy, ug, vg, U, V, FX, FY, full_t, full_f, k_rp, c_theta, at, qx, qy, qnx, qny,
-                       out)
+        _pointwise_row(j, B, ty, zy, r1, r2, ug, vg, U, V, FX, FY, full_t, full_f, k_rp, c_theta, at, qx, qy, qnx, qny,
+                       out, store_work)
     # ---- sweep 3: ∇²A_T and ∇·Q, ∇·Q_n (pole rows: divergences extrapolated, Laplacian of the cap)
     o2 = out[2]
     o9 = out[9]

@@ -755,18 +755,28 @@ def _stored(da: xr.DataArray, dtype: np.dtype, target=None) -> xr.DataArray:
     return da if da.dtype == dtype else da.astype(dtype)
 
 
-def _dataset(parts: dict, attrs: dict, grid: Grid | None = None) -> xr.Dataset:
+def _dataset(parts: dict, attrs: dict, grid: Grid | None = None, owned=()) -> xr.Dataset:
     """The result dataset; with ``grid``, pole rows are masked (NaN) with a :class:`PoleRowWarning`.
 
     At a pole the zonal metric vanishes and the nested operators there rest on rows extrapolated
     from their neighbours: on a global 3° reanalysis −2∇·Q at a pole point came out ten times the
     mid-latitude maxima.  The rows are the inversion's boundary, so ω never reads them.
+    The in-memory arrays of the variables named in ``owned`` (new arrays of this call, shared
+    with nothing else) are masked in place; the others are copied.
     """
     out = xr.Dataset(parts)
     if grid is not None and grid.pole_rows:
         keep = xr.DataArray(~np.isin(np.arange(grid.shape[0]), grid.pole_rows), dims=(grid.ydim,))
-        out = out.map(lambda da: da.where(keep) if grid.ydim in da.dims and da.dtype.kind == "f" else da,
-                      keep_attrs=True)
+
+        def mask(da):
+            if grid.ydim not in da.dims or da.dtype.kind != "f":
+                return da
+            if da.name in owned and isinstance(da.data, np.ndarray) and da.data.flags.writeable:
+                da.data[(slice(None),) * da.dims.index(grid.ydim) + (list(grid.pole_rows),)] = np.nan
+                return da
+            return da.where(keep)
+
+        out = out.map(mask, keep_attrs=True)
         warnings.warn(f"{len(grid.pole_rows)} pole row(s) of the grid are masked (NaN) in the forcing terms: the "
                       f"derivatives there are not defined on the sphere's grid", PoleRowWarning, stacklevel=3)
         attrs = {**attrs, "qgforce_pole_rows": "masked (NaN)"}
@@ -1346,12 +1356,15 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
             out["v_north"] = c.v_geostrophic_north
         return out
 
-    from ._forcing_engine import compiled_context, resolve_dtype
+    from ._forcing_engine import OUTPUT_NAMES, compiled_context, resolve_dtype
 
     store = resolve_dtype(dtype)
+    owned = ()
     if _check_choice(method, ("numpy", "compiled"), "method") == "compiled":
         h = horizontal(compiled_context(ctx, temperature_wind, frontogenesis_wind, dtype=store, out=out,
                                         workers=workers))
+        # the kernel's outputs and the vertical terms are new arrays of this call
+        owned = (*OUTPUT_NAMES, "differential_vorticity_advection", "beta_term")
     else:
         h = ctx.evaluate(horizontal)
     v_north = h.pop("v_north") if "v_north" in h else h["v_geostrophic"]
@@ -1383,4 +1396,4 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
                       OmittedTermWarning, stacklevel=2)
     return _dataset(parts, {**ctx.attrs(), "qgforce_temperature_wind": temperature_wind,
                             "qgforce_frontogenesis_wind": frontogenesis_wind, "qgforce_omitted": omitted_text},
-                    ctx.grid)
+                    ctx.grid, owned)

@@ -146,3 +146,21 @@ def test_dask_input_asks_for_the_numpy_method():
     ds = _wave_dataset(**DATELINE).chunk({"level": 2})
     with pytest.raises(OptionError, match="dask input"):
         forcing.forcing_terms(ds, method="compiled")
+
+
+def test_kernel_arctangent_within_one_ulp_of_the_c_library():
+    """The kernel's branch-free Cephes arctangent (Moshier 1989) against the C library's atan
+    (``math.atan``; C99 annex F for the special values): within 1 ulp, signs and limits kept."""
+    import math
+
+    from qgforce._forcing_kernels import _atan
+
+    rng = np.random.default_rng(7)
+    xs = np.concatenate([rng.standard_normal(2000) * s for s in (1e-9, 1e-3, 0.3, 1.0, 3.0, 1e2, 1e8)]
+                        + [[0.66, -0.66, 2.41421356237309504880, 1.0, -1.0, 1e300, 5e-324]])
+    for x in xs:
+        got, want = _atan(float(x)), math.atan(float(x))
+        assert abs(got - want) <= np.spacing(abs(want)), (x, got, want)
+    assert math.copysign(1.0, _atan(-0.0)) == -1.0 and _atan(0.0) == 0.0
+    assert _atan(math.inf) == math.pi / 2 and _atan(-math.inf) == -math.pi / 2
+    assert math.isnan(_atan(math.nan))
