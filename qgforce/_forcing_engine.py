@@ -1,7 +1,7 @@
 """The compiled path of :func:`qgforce.forcing.forcing_terms`: stencils, allocation, threads.
 
 :func:`compiled_context` is the one dispatch point used by :mod:`qgforce.forcing`
-(``method="compiled"``).  On a lat–lon grid with uniform longitudes and at least 4 × 4 points,
+(``method="compiled"``, and the default wherever :func:`compiled_applies`).  On a lat–lon grid with uniform longitudes and at least 4 × 4 points,
 with numpy input, it computes every horizontal output with
 :func:`qgforce._forcing_kernels.latlon_level`, one level per kernel call, levels shared among
 threads (the kernel runs without the GIL), into preallocated arrays, and returns the call's
@@ -28,7 +28,7 @@ from .calculus import LEVEL, gradient
 from .errors import OptionError
 from .kinematics import _choice_attrs
 
-__all__ = ["compiled_context", "resolve_threads", "THREADS_ENV", "OUTPUT_NAMES"]
+__all__ = ["compiled_applies", "compiled_context", "resolve_threads", "THREADS_ENV", "OUTPUT_NAMES"]
 
 #: Environment variable read when ``workers`` is not given (the variable of the column kernels).
 THREADS_ENV = "QGFORCE_NUM_THREADS"
@@ -161,7 +161,9 @@ def _geometry(grid, cor) -> tuple:
     return (xw, float(inv2hx), yidx, yw, ymode, float(inv2hy), R, *csr, *pole_args, *caps)
 
 
-def _applies(ctx) -> bool:
+def compiled_applies(ctx) -> bool:
+    """Whether the compiled pass runs on this call: a lat–lon grid with uniform longitudes, at least
+    4 × 4 points, numpy (not dask) input with the grid's dims last."""
     g = ctx.grid
     return (g.kind == "latlon" and min(g.shape) >= 4 and K.is_uniform(np.asarray(g.xi))
             and all(da.chunks is None for da in ctx.fields.values())
@@ -201,12 +203,12 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
     """
     store = resolve_dtype(dtype)
     threads = resolve_threads(workers)
-    if not _applies(ctx):
+    if not compiled_applies(ctx):
         raise OptionError(
             f"method='compiled' runs on lat-lon grids with uniform longitudes, at least 4 x 4 points and "
             f"in-memory (numpy) input; this call has a {ctx.grid.kind} grid of {ctx.grid.shape[0]} x "
             f"{ctx.grid.shape[1]} points{' and dask input' if any(da.chunks is not None for da in ctx.fields.values()) else ''}. "
-            f"Use method='numpy' (the default), which runs everywhere.")
+            f"Use method='numpy' (or leave method unset to choose automatically), which runs everywhere.")
     from ._forcing_kernels import latlon_level
 
     grid, cor = ctx.grid, ctx.cor

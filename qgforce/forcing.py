@@ -1268,7 +1268,7 @@ def _rhs(ctx: _Context, form: str) -> xr.Dataset:
 @_doc
 def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="full", coriolis=None, f0_latitude=None,
                   equator_mask=C.DEFAULT_EQUATOR_MASK_DEGREES, smoothing=None, levels=None, grid=None, dtype=None,
-                  out=None, workers=None, method="numpy"):
+                  out=None, workers=None, method=None):
     """Every forcing diagnostic the levels allow, each intermediate computed once.
 
     Parameters
@@ -1291,10 +1291,12 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
     workers : int, optional
         Threads of the compiled pass: a count, negative to back off from the cores (−1: all);
         default ``$QGFORCE_NUM_THREADS`` or every core (at most 8).
-    method : {"numpy", "compiled"}
+    method : {None, "numpy", "compiled"}
         ``"compiled"``: one compiled pass per level (:mod:`qgforce._forcing_engine`; lat–lon grids
-        with uniform longitudes and numpy input), equal to the numpy path to round-off but, as
-        measured so far, slower than it (see DEVELOPERS.md), hence not the default.
+        with uniform longitudes, at least 4 × 4 points and numpy input), equal to the numpy path to
+        round-off and about 3–4× faster than it (see DEVELOPERS.md); ``"numpy"``: the labelled
+        numpy operators, which run on every grid and on dask input.  Default (``None``): the
+        compiled pass where it applies, else numpy.
 
     Returns
     -------
@@ -1356,11 +1358,13 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
             out["v_north"] = c.v_geostrophic_north
         return out
 
-    from ._forcing_engine import OUTPUT_NAMES, compiled_context, resolve_dtype
+    from ._forcing_engine import OUTPUT_NAMES, compiled_applies, compiled_context, resolve_dtype
 
     store = resolve_dtype(dtype)
     owned = ()
-    if _check_choice(method, ("numpy", "compiled"), "method") == "compiled":
+    if _check_choice(method, (None, "numpy", "compiled"), "method") is None:
+        method = "compiled" if compiled_applies(ctx) else "numpy"
+    if method == "compiled":
         h = horizontal(compiled_context(ctx, temperature_wind, frontogenesis_wind, dtype=store, out=out,
                                         workers=workers))
         # the kernel's outputs and the vertical terms are new arrays of this call

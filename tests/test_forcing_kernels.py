@@ -42,7 +42,7 @@ def _wave_dataset(lat, lon, nz=5):
 def _compare(ds, tol=1e-12, **kw):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        ref = forcing.forcing_terms(ds, **kw)
+        ref = forcing.forcing_terms(ds, method="numpy", **kw)
         new = forcing.forcing_terms(ds, method="compiled", **kw)
     assert list(new.data_vars) == list(ref.data_vars)
     for name in ref.data_vars:
@@ -90,10 +90,10 @@ def test_float32_storage_and_out():
     target = np.empty(shape, dtype=np.float32)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        ref = forcing.forcing_terms(ds)
+        ref = forcing.forcing_terms(ds, method="numpy")
         new = forcing.forcing_terms(ds, method="compiled", dtype="float32", out={"frontogenesis": target},
                                     workers=2)
-        old = forcing.forcing_terms(ds, dtype="float32")
+        old = forcing.forcing_terms(ds, method="numpy", dtype="float32")
     assert np.shares_memory(new.frontogenesis.values, target)
     for name in ref.data_vars:
         if name == "geopotential":
@@ -134,6 +134,18 @@ def test_bad_options():
         forcing.forcing_terms(ds, method="fast")
     with pytest.raises(OptionError, match="must be a C-contiguous float64 array"):
         forcing.forcing_terms(ds, method="compiled", out={"frontogenesis": np.empty(3)})
+
+
+def test_default_method_is_compiled_where_it_applies():
+    ds = _wave_dataset(**GLOBAL_POLES)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        xr.testing.assert_identical(forcing.forcing_terms(ds, f0_latitude=45.0),
+                                    forcing.forcing_terms(ds, f0_latitude=45.0, method="compiled"))
+        case = cases.get_case("deformation_q_vector")  # a projected grid: the numpy path
+        xr.testing.assert_identical(forcing.forcing_terms(case.ds), forcing.forcing_terms(case.ds, method="numpy"))
+        lazy = _wave_dataset(**DATELINE).chunk({"level": 2})  # dask input: the numpy path, still lazy
+        assert forcing.forcing_terms(lazy).q_vector_forcing.chunks is not None
 
 
 def test_projected_grid_asks_for_the_numpy_method():
