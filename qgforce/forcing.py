@@ -1294,7 +1294,7 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
     method : {None, "numpy", "compiled"}
         ``"compiled"``: one compiled pass per level (:mod:`qgforce._forcing_engine`; lat–lon grids
         with uniform longitudes, at least 4 × 4 points and numpy input), equal to the numpy path to
-        round-off and about 3–4× faster than it (see DEVELOPERS.md); ``"numpy"``: the labelled
+        round-off and 3–7× faster than it as measured (DEVELOPERS.md); ``"numpy"``: the labelled
         numpy operators, which run on every grid and on dask input.  Default (``None``): the
         compiled pass where it applies, else numpy.
 
