@@ -1,7 +1,7 @@
 """The compiled path of :func:`qgforce.forcing.forcing_terms`: stencils, allocation, threads.
 
 :func:`compiled_context` is the one dispatch point used by :mod:`qgforce.forcing`
-(``method="compiled"``).  On a lat–lon grid with uniform longitudes and at least 4 × 4 points,
+(``method="compiled"``, and the default wherever :func:`compiled_applies`).  On a lat–lon grid with uniform longitudes and at least 4 × 4 points,
 with numpy input, it computes every horizontal output with
 :func:`qgforce._forcing_kernels.latlon_level`, one level per kernel call, levels shared among
 threads (the kernel runs without the GIL), into preallocated arrays, and returns the call's
@@ -28,7 +28,7 @@ from .calculus import LEVEL, gradient
 from .errors import OptionError
 from .kinematics import _choice_attrs
 
-__all__ = ["compiled_context", "resolve_threads", "THREADS_ENV", "OUTPUT_NAMES"]
+__all__ = ["compiled_applies", "compiled_context", "resolve_threads", "THREADS_ENV", "OUTPUT_NAMES"]
 
 #: Environment variable read when ``workers`` is not given (the variable of the column kernels).
 THREADS_ENV = "QGFORCE_NUM_THREADS"
@@ -88,7 +88,10 @@ def resolve_dtype(dtype) -> np.dtype:
 
 
 def _axis(coord: np.ndarray, periodic: bool):
-    """(idx (n, 3), w (n, 3), mode (n,), (1/(2h),)) of stencils.first_derivative along one axis."""
+    """(idx (n, 3), w (n, 3), mode (n,), 1/(2h)) of stencils.first_derivative along one axis.
+
+    ``mode``: 0 centred uniform, 1 non-uniform interior (Fornberg weights), 2 one-sided edge.
+    """
     c = np.asarray(coord, dtype=np.float64)
     n = c.size
     idx = np.empty((n, 3), dtype=np.int64)
@@ -113,15 +116,19 @@ def _axis(coord: np.ndarray, periodic: bool):
         lo, hi = K._edge_weights(c)
         idx[0], w[0], mode[0] = (0, 1, 2), lo, 2
         idx[-1], w[-1], mode[-1] = (n - 3, n - 2, n - 1), hi, 2
-    return idx, w, mode, np.array([inv2h])
+    return idx, w, mode, inv2h
 
 
 def _row(a, ny: int) -> np.ndarray:
     return np.ascontiguousarray(np.broadcast_to(np.asarray(a, dtype=np.float64), (ny, 1))[:, 0])
 
 
-def _geometry(grid, cor):
-    """The stencils and row metrics of a lat–lon grid, computed as :mod:`qgforce._stencils` does."""
+def _geometry(grid, cor) -> tuple:
+    """The stencil, metric, pole and cap arguments of the kernel, computed as :mod:`qgforce._stencils` does.
+
+    Returns the arguments ``xw, inv2hx, yidx, yw, ymode, inv2hy, R, indptr, indices, data, pj,
+    pj1, pj2, pt, ccos, cdphi, carea`` of :func:`qgforce._forcing_kernels.latlon_level`.
+    """
     ny, nx = grid.shape
     eta = np.asarray(grid.eta, dtype=np.float64)
     hx, hy = np.asarray(grid.hx, dtype=np.float64), np.asarray(grid.hy, dtype=np.float64)
@@ -131,27 +138,32 @@ def _geometry(grid, cor):
     inv_area = K._safe_inverse(hx * hy)
     with np.errstate(divide="ignore"):
         inv_f = np.where(cor.mask, np.nan, 1.0 / cor.f)
-    M = (np.ones(ny), _row(ihx, ny), _row(ihy, ny), _row(mx, ny), _row(hx, ny), _row(hy, ny), _row(inv_area, ny),
-         _row(inv_f[:, :1], ny), _row(cor.mask[:, :1].astype(np.float64), ny))
     h = grid.xi[1] - grid.xi[0]
     xfac = (hy * K._safe_inverse(hx) * inv_area) / (h * h)
+    R = np.stack([_row(ihx, ny), _row(ihy, ny), _row(mx, ny), _row(hx, ny), _row(hy, ny), _row(inv_area, ny),
+                  _row(inv_f[:, :1], ny), _row(cor.mask[:, :1].astype(np.float64), ny), _row(xfac, ny), np.ones(ny)])
     mer = K._meridional_operator(eta, _row(hx, ny), _row(hy, ny), _row(inv_area, ny))
-    L = (_row(xfac, ny), mer.indptr.astype(np.int64), mer.indices.astype(np.int64), mer.data.astype(np.float64))
+    csr = (mer.indptr.astype(np.int64), mer.indices.astype(np.int64), mer.data.astype(np.float64))
     poles = [p % ny for p in grid.pole_rows]
     j1s = [1 if j == 0 else ny - 2 for j in poles]
     j2s = [2 if j == 0 else ny - 3 for j in poles]
-    P = (np.array(poles, dtype=np.int64), np.array(j1s, dtype=np.int64), np.array(j2s, dtype=np.int64),
-         np.array([(eta[j] - eta[a]) / (eta[a] - eta[b]) for j, a, b in zip(poles, j1s, j2s)], dtype=np.float64))
+    pole_args = (np.array(poles, dtype=np.int64), np.array(j1s, dtype=np.int64), np.array(j2s, dtype=np.int64),
+                 np.array([(eta[j] - eta[a]) / (eta[a] - eta[b]) for j, a, b in zip(poles, j1s, j2s)],
+                          dtype=np.float64))
     phic = np.array([0.5 * (eta[j] + eta[a]) for j, a in zip(poles, j1s)], dtype=np.float64)
     radius = float(hy.ravel()[0])
-    caps = (P[0], P[1], np.cos(phic), np.array([abs(eta[a] - eta[j]) for j, a in zip(poles, j1s)], dtype=np.float64),
+    caps = (np.cos(phic), np.array([abs(eta[a] - eta[j]) for j, a in zip(poles, j1s)], dtype=np.float64),
             np.array([2 * np.pi * radius**2 * (1 - abs(np.sin(x))) for x in phic], dtype=np.float64))
-    X = _axis(grid.xi, grid.periodic_x)
-    Y = _axis(eta, False)
-    return X, Y, M, L, P, caps
+    xi = np.asarray(grid.xi, dtype=np.float64)
+    xw = np.zeros((2, 3)) if grid.periodic_x else np.stack(K._edge_weights(xi))
+    _, _, _, inv2hx = _axis(xi, grid.periodic_x)
+    yidx, yw, ymode, inv2hy = _axis(eta, False)
+    return (xw, float(inv2hx), yidx, yw, ymode, float(inv2hy), R, *csr, *pole_args, *caps)
 
 
-def _applies(ctx) -> bool:
+def compiled_applies(ctx) -> bool:
+    """Whether the compiled pass runs on this call: a lat–lon grid with uniform longitudes, at least
+    4 × 4 points, numpy (not dask) input with the grid's dims last."""
     g = ctx.grid
     return (g.kind == "latlon" and min(g.shape) >= 4 and K.is_uniform(np.asarray(g.xi))
             and all(da.chunks is None for da in ctx.fields.values())
@@ -191,12 +203,12 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
     """
     store = resolve_dtype(dtype)
     threads = resolve_threads(workers)
-    if not _applies(ctx):
+    if not compiled_applies(ctx):
         raise OptionError(
             f"method='compiled' runs on lat-lon grids with uniform longitudes, at least 4 x 4 points and "
             f"in-memory (numpy) input; this call has a {ctx.grid.kind} grid of {ctx.grid.shape[0]} x "
             f"{ctx.grid.shape[1]} points{' and dask input' if any(da.chunks is not None for da in ctx.fields.values()) else ''}. "
-            f"Use method='numpy' (the default), which runs everywhere.")
+            f"Use method='numpy' (or leave method unset to choose automatically), which runs everywhere.")
     from ._forcing_kernels import latlon_level
 
     grid, cor = ctx.grid, ctx.cor
@@ -218,7 +230,7 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
     c_theta = (C.REFERENCE_PRESSURE / p) ** C.KAPPA
     fx, fy = (np.ascontiguousarray(np.broadcast_to(g.values, (ny, nx)), dtype=np.float64)
               for g in gradient(ctx.coriolis_local, grid))
-    X, Y, M, L, P, caps = _geometry(grid, cor)
+    geometry = _geometry(grid, cor)
     out = dict(out or {})
     arrays = {}
     for name in OUTPUT_NAMES:
@@ -242,8 +254,8 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
             o = tuple(flat[k][s] for k in OUTPUT_NAMES)
             ug, qx, qy, qnx, qny = (o[17], o[3], o[4], o[5], o[6]) if direct else spare
             latlon_level(T[s], PHI[s], U[s], V[s], fx, fy, full_t, full_f, cor.kind == "local", grid.periodic_x,
-                         X, Y, M, L, P, caps, float(k_rp[s]), float(c_theta[s]), float(cor.f0),
-                         ug, o[18], zeta, at, qx, qy, qnx, qny, o)
+                         *geometry, float(k_rp[s]), float(c_theta[s]), float(cor.f0),
+                         ug, o[18], zeta, at, qx, qy, qnx, qny, o, not direct)
 
     bounds = np.linspace(0, n, threads + 1).astype(int)
     if threads == 1:

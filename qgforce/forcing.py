@@ -755,18 +755,28 @@ def _stored(da: xr.DataArray, dtype: np.dtype, target=None) -> xr.DataArray:
     return da if da.dtype == dtype else da.astype(dtype)
 
 
-def _dataset(parts: dict, attrs: dict, grid: Grid | None = None) -> xr.Dataset:
+def _dataset(parts: dict, attrs: dict, grid: Grid | None = None, owned=()) -> xr.Dataset:
     """The result dataset; with ``grid``, pole rows are masked (NaN) with a :class:`PoleRowWarning`.
 
     At a pole the zonal metric vanishes and the nested operators there rest on rows extrapolated
     from their neighbours: on a global 3° reanalysis −2∇·Q at a pole point came out ten times the
     mid-latitude maxima.  The rows are the inversion's boundary, so ω never reads them.
+    The in-memory arrays of the variables named in ``owned`` (new arrays of this call, shared
+    with nothing else) are masked in place; the others are copied.
     """
     out = xr.Dataset(parts)
     if grid is not None and grid.pole_rows:
         keep = xr.DataArray(~np.isin(np.arange(grid.shape[0]), grid.pole_rows), dims=(grid.ydim,))
-        out = out.map(lambda da: da.where(keep) if grid.ydim in da.dims and da.dtype.kind == "f" else da,
-                      keep_attrs=True)
+
+        def mask(da):
+            if grid.ydim not in da.dims or da.dtype.kind != "f":
+                return da
+            if da.name in owned and isinstance(da.data, np.ndarray) and da.data.flags.writeable:
+                da.data[(slice(None),) * da.dims.index(grid.ydim) + (list(grid.pole_rows),)] = np.nan
+                return da
+            return da.where(keep)
+
+        out = out.map(mask, keep_attrs=True)
         warnings.warn(f"{len(grid.pole_rows)} pole row(s) of the grid are masked (NaN) in the forcing terms: the "
                       f"derivatives there are not defined on the sphere's grid", PoleRowWarning, stacklevel=3)
         attrs = {**attrs, "qgforce_pole_rows": "masked (NaN)"}
@@ -1258,7 +1268,7 @@ def _rhs(ctx: _Context, form: str) -> xr.Dataset:
 @_doc
 def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="full", coriolis=None, f0_latitude=None,
                   equator_mask=C.DEFAULT_EQUATOR_MASK_DEGREES, smoothing=None, levels=None, grid=None, dtype=None,
-                  out=None, workers=None, method="numpy"):
+                  out=None, workers=None, method=None):
     """Every forcing diagnostic the levels allow, each intermediate computed once.
 
     Parameters
@@ -1281,10 +1291,12 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
     workers : int, optional
         Threads of the compiled pass: a count, negative to back off from the cores (−1: all);
         default ``$QGFORCE_NUM_THREADS`` or every core (at most 8).
-    method : {"numpy", "compiled"}
+    method : {None, "numpy", "compiled"}
         ``"compiled"``: one compiled pass per level (:mod:`qgforce._forcing_engine`; lat–lon grids
-        with uniform longitudes and numpy input), equal to the numpy path to round-off but, as
-        measured so far, slower than it (see DEVELOPERS.md), hence not the default.
+        with uniform longitudes, at least 4 × 4 points and numpy input), equal to the numpy path to
+        round-off and 3–7× faster than it as measured (DEVELOPERS.md); ``"numpy"``: the labelled
+        numpy operators, which run on every grid and on dask input.  Default (``None``): the
+        compiled pass where it applies, else numpy.
 
     Returns
     -------
@@ -1346,12 +1358,17 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
             out["v_north"] = c.v_geostrophic_north
         return out
 
-    from ._forcing_engine import compiled_context, resolve_dtype
+    from ._forcing_engine import OUTPUT_NAMES, compiled_applies, compiled_context, resolve_dtype
 
     store = resolve_dtype(dtype)
-    if _check_choice(method, ("numpy", "compiled"), "method") == "compiled":
+    owned = ()
+    if _check_choice(method, (None, "numpy", "compiled"), "method") is None:
+        method = "compiled" if compiled_applies(ctx) else "numpy"
+    if method == "compiled":
         h = horizontal(compiled_context(ctx, temperature_wind, frontogenesis_wind, dtype=store, out=out,
                                         workers=workers))
+        # the kernel's outputs and the vertical terms are new arrays of this call
+        owned = (*OUTPUT_NAMES, "differential_vorticity_advection", "beta_term")
     else:
         h = ctx.evaluate(horizontal)
     v_north = h.pop("v_north") if "v_north" in h else h["v_geostrophic"]
@@ -1383,4 +1400,4 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
                       OmittedTermWarning, stacklevel=2)
     return _dataset(parts, {**ctx.attrs(), "qgforce_temperature_wind": temperature_wind,
                             "qgforce_frontogenesis_wind": frontogenesis_wind, "qgforce_omitted": omitted_text},
-                    ctx.grid)
+                    ctx.grid, owned)

@@ -42,7 +42,7 @@ def _wave_dataset(lat, lon, nz=5):
 def _compare(ds, tol=1e-12, **kw):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        ref = forcing.forcing_terms(ds, **kw)
+        ref = forcing.forcing_terms(ds, method="numpy", **kw)
         new = forcing.forcing_terms(ds, method="compiled", **kw)
     assert list(new.data_vars) == list(ref.data_vars)
     for name in ref.data_vars:
@@ -90,10 +90,10 @@ def test_float32_storage_and_out():
     target = np.empty(shape, dtype=np.float32)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        ref = forcing.forcing_terms(ds)
+        ref = forcing.forcing_terms(ds, method="numpy")
         new = forcing.forcing_terms(ds, method="compiled", dtype="float32", out={"frontogenesis": target},
                                     workers=2)
-        old = forcing.forcing_terms(ds, dtype="float32")
+        old = forcing.forcing_terms(ds, method="numpy", dtype="float32")
     assert np.shares_memory(new.frontogenesis.values, target)
     for name in ref.data_vars:
         if name == "geopotential":
@@ -136,6 +136,18 @@ def test_bad_options():
         forcing.forcing_terms(ds, method="compiled", out={"frontogenesis": np.empty(3)})
 
 
+def test_default_method_is_compiled_where_it_applies():
+    ds = _wave_dataset(**GLOBAL_POLES)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        xr.testing.assert_identical(forcing.forcing_terms(ds, f0_latitude=45.0),
+                                    forcing.forcing_terms(ds, f0_latitude=45.0, method="compiled"))
+        case = cases.get_case("deformation_q_vector")  # a projected grid: the numpy path
+        xr.testing.assert_identical(forcing.forcing_terms(case.ds), forcing.forcing_terms(case.ds, method="numpy"))
+        lazy = _wave_dataset(**DATELINE).chunk({"level": 2})  # dask input: the numpy path, still lazy
+        assert forcing.forcing_terms(lazy).q_vector_forcing.chunks is not None
+
+
 def test_projected_grid_asks_for_the_numpy_method():
     case = cases.get_case("deformation_q_vector")
     with pytest.raises(OptionError, match="method='numpy'"):
@@ -146,3 +158,21 @@ def test_dask_input_asks_for_the_numpy_method():
     ds = _wave_dataset(**DATELINE).chunk({"level": 2})
     with pytest.raises(OptionError, match="dask input"):
         forcing.forcing_terms(ds, method="compiled")
+
+
+def test_kernel_arctangent_within_one_ulp_of_the_c_library():
+    """The kernel's branch-free Cephes arctangent (Moshier 1989) against the C library's atan
+    (``math.atan``; C99 annex F for the special values): within 1 ulp, signs and limits kept."""
+    import math
+
+    from qgforce._forcing_kernels import _atan
+
+    rng = np.random.default_rng(7)
+    xs = np.concatenate([rng.standard_normal(2000) * s for s in (1e-9, 1e-3, 0.3, 1.0, 3.0, 1e2, 1e8)]
+                        + [[0.66, -0.66, 2.41421356237309504880, 1.0, -1.0, 1e300, 5e-324]])
+    for x in xs:
+        got, want = _atan(float(x)), math.atan(float(x))
+        assert abs(got - want) <= np.spacing(abs(want)), (x, got, want)
+    assert math.copysign(1.0, _atan(-0.0)) == -1.0 and _atan(0.0) == 0.0
+    assert _atan(math.inf) == math.pi / 2 and _atan(-math.inf) == -math.pi / 2
+    assert math.isnan(_atan(math.nan))
