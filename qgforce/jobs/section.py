@@ -391,8 +391,8 @@ def run_section(opts) -> int:
                                prefix=o["prefix"], dpi=o["dpi"], overwrite=bool(o["overwrite"]))
     finally:
         ds.close()
-    if not o["quiet"]:
-        print(f"wrote {len(written)} PNG file(s) to {o['output_dir']}/:", flush=True)
+    print(f"wrote {len(written)} PNG file(s) to {o['output_dir']}/" + ("" if o["quiet"] else ":"), flush=True)
+    if not o["quiet"]:  # --quiet keeps the line saying what was written
         for path in written:
             print(f"  {path.name}", flush=True)
     return 0
