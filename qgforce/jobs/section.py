@@ -148,6 +148,14 @@ def _save_png(fig, path: Path, dpi: float) -> None:
         fig.savefig(tmp, format="png", dpi=dpi)
 
 
+def _colours(name: str) -> str | None:
+    """The field's colour map on the maps (ascent and what forces it at the same, red, end)."""
+    from .._map_style import field_style
+
+    style = field_style(name)
+    return style.cmap if style is not None else None
+
+
 def _point_text(lat: float, lon: float) -> str:
     lon = (lon + 180.0) % 360.0 - 180.0
     return f"{abs(lat):.1f}°{'N' if lat >= 0 else 'S'} {abs(lon):.1f}°{'E' if lon >= 0 else 'W'}"
@@ -273,7 +281,7 @@ def draw_section(results: xr.Dataset, start, end, output_dir, *, inputs: xr.Data
         try:
             plot.cross_section(da, start, end, ax=ax, npoints=npoints, contours=theta,
                                contour_interval=THETA_INTERVAL_K if theta is not None else None,
-                               circulation=circulation,
+                               circulation=circulation, cmap=_colours(name),
                                title=_title(da, start, end, when, theta is not None, note))
             _save_png(fig, path, dpi)
         finally:
