@@ -189,8 +189,8 @@ COMMANDS = {
         "and q_vector_forcing the input allows) and draw each, at each chosen time, on the vertical section along "
         "the great circle from --start to --end: pressure on a log axis, potential-temperature contours, and the "
         "in-plane circulation (along-section wind and -omega) where the inputs define it.",
-        ("files", "start", "end", "fields", "times", "points", "prefix", "output_dir", "dpi", "overwrite", "names",
-         "quiet", "config"),
+        ("files", "start", "end", "fields", "times", "points", "prefix", "output_dir", "dpi", "overwrite", "region",
+         "form", "smoothing", "coriolis", "f0_latitude", "names", "quiet", "config"),
         {"output_dir": "qgforce_sections", "fields": None},
         "PNG file names: {prefix}_{field}_{YYYYmmddTHHMM}.png, e.g. section_omega_total_20461119T0600.png. "
         "Negative coordinates may follow a space: --start -35,150.",
@@ -744,6 +744,8 @@ def _error_line(exc: BaseException) -> str:
 _PYTHON_ADVICE = (
     (r"\(pass domain=\.\.\.[^)]*\)", "(choose the region with --region LAT0,LAT1,LON0,LON1)"),
     (r"pass domain=\.\.\.", "choose the region with --region LAT0,LAT1,LON0,LON1"),
+    (r"pass units=\{'(\w+)': '([^']*)'\}", r"pass --units \1=\2"),
+    (r"choose f0_latitude explicitly \(e\.g\. (\d+)\) or a domain", r"give --f0-latitude (e.g. \1) or a --region"),
     (r"set ds\[('[^']*')\]\.attrs\['units'\] \(for example to ('[^']*')\)",
      r"give the variable \1 a units attribute in the file (for example \2)"),
 )

@@ -473,12 +473,17 @@ def test_map_file_name_pattern():
     assert W.map_file_name("frontogenesis", 92500.0, None) == "frontogenesis_925hPa.png"
 
 
-def test_one_truncated_file_among_many_refused_or_skipped(tmp_path, capsys):
-    # issue 6: a truncated download among good files is named; --skip-bad-files completes and reports it
+def parts_with_a_truncated_one(directory: Path) -> None:
+    """part0.nc and part1.nc (the demo's first two times) and part2.nc, a truncated copy (a broken download)."""
     with xr.open_dataset(DEMO) as ds:
         for i in range(2):
-            ds.isel(time=[i]).load().to_netcdf(tmp_path / f"part{i}.nc")
-    (tmp_path / "part2.nc").write_bytes((tmp_path / "part1.nc").read_bytes()[:5000])
+            ds.isel(time=[i]).load().to_netcdf(directory / f"part{i}.nc")
+    (directory / "part2.nc").write_bytes((directory / "part1.nc").read_bytes()[:5000])
+
+
+def test_one_truncated_file_among_many_refused_or_skipped(tmp_path, capsys):
+    # issue 6: a truncated download among good files is named; --skip-bad-files completes and reports it
+    parts_with_a_truncated_one(tmp_path)
     out = tmp_path / "out.nc"
     args = ["compute", str(tmp_path / "part*.nc"), "-o", str(out), "--fields", "temperature_advection",
             "--levels", "850", "--no-omega", "-q"]

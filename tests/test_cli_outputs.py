@@ -32,7 +32,7 @@ from qgforce.jobs.maps import RUN_RECORD  # noqa: E402
 from qgforce.jobs.runpage import RUN_PAGE_NAME  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from test_cli import DEMO, assert_one_error_line, files_in, run, stamp  # noqa: E402
+from test_cli import DEMO, assert_one_error_line, files_in, parts_with_a_truncated_one, run, stamp  # noqa: E402
 
 T = "2046-11-19T06"
 CROSS = ("--start", "35,-150", "--end", "62,-100")  # across the invented demo cyclone
@@ -76,6 +76,8 @@ def test_section_help_and_a_section_from_the_command_line(one_time, tmp_path, ca
     (("--end", "95,10"), ("--end", "[-90, 90]")),
     (("--end", "62,-100", "--points", "1"), ("--points",)),
     (("--end", "62,-100", "--fields", "nonsense"), ("nonsense",)),
+    (("--end", "62,-100", "--smoothing", "five_point:100000"), ("100000 passes",)),  # computing options reach it
+    (("--end", "62,-100", "--coriolis", "local", "--f0-latitude", "50"), ("contradict",)),
 ])
 def test_section_mistakes_are_one_line_and_write_nothing(one_time, tmp_path, capsys, extra, fragments):
     out = tmp_path / "sec"
@@ -136,10 +138,7 @@ def test_maps_resume_keeps_finished_files_and_overwrite_redraws(one_time, tmp_pa
 
 
 def test_maps_skip_bad_files(tmp_path, capsys):
-    with xr.open_dataset(DEMO) as ds:
-        for i in range(2):
-            ds.isel(time=[i]).load().to_netcdf(tmp_path / f"part{i}.nc")
-    (tmp_path / "part2.nc").write_bytes((tmp_path / "part1.nc").read_bytes()[:5000])
+    parts_with_a_truncated_one(tmp_path)
     out = tmp_path / "maps"
     argv = ["maps", str(tmp_path / "part*.nc"), "--output-dir", str(out), "--fields", "temperature_advection",
             "--levels", "850", "--no-summary", "--projection", "plain", "--dpi", "30", "-q"]

@@ -356,6 +356,9 @@ _DEFAULTS = {"files": [], "start": None, "end": None, "fields": None, "times": N
              "prefix": "section", "output_dir": "qgforce_sections", "dpi": 100, "overwrite": False, "names": None,
              "quiet": False}
 
+#: Computing options passed on to :func:`qgforce.jobs.compute.build_results` when given.
+_COMPUTING = ("region", "form", "smoothing", "coriolis", "f0_latitude")
+
 
 def run_section(opts) -> int:
     """Run ``qgforce section`` from parsed options; return the exit status (0).
@@ -365,7 +368,9 @@ def run_section(opts) -> int:
     opts : argparse.Namespace or Mapping
         The values of :func:`add_section_arguments` (missing or None values take the defaults;
         ``start``/``end`` may also be ``"LAT,LON"`` texts or pairs, as from a config file).
-        ``names`` (variable names of the file) and ``quiet`` are used when present.
+        ``names`` (variable names of the file), ``quiet`` and the computing options ``region``,
+        ``form``, ``smoothing``, ``coriolis``, ``f0_latitude`` (as for
+        :func:`qgforce.jobs.compute.build_results`) are used when present.
 
     Raises
     ------
@@ -393,8 +398,11 @@ def run_section(opts) -> int:
         # default: temperature advection (it needs only temperature and geopotential) and whichever
         # of the other section fields the input allows
         wanted = list(fields) if fields else ["temperature_advection"]
+        computing = {k: given[k] for k in _COMPUTING if given.get(k) is not None}
+        if str(computing.get("smoothing", "")).strip().lower() == "none":
+            computing.pop("smoothing")
         results = build_results(ds, fields=wanted, optional_fields=[*SECTION_FIELDS, "omega_total"],
-                                times=o["times"])
+                                times=o["times"], **computing)
         written = draw_section(results, start, end, o["output_dir"], inputs=ds, fields=fields, npoints=o["points"],
                                prefix=o["prefix"], dpi=o["dpi"], overwrite=bool(o["overwrite"]))
     finally:
