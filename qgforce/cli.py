@@ -139,7 +139,8 @@ COMMANDS = {
         "run the main job on the bundled demo data (NetCDF results, PNG maps, a summary)",
         "Compute every forcing diagnostic and invert the QG omega equation in both forms for the bundled, "
         "invented demo scenario; write one NetCDF file of results and PNG maps (a summary figure per time and "
-        "single maps at the time of the strongest ascent) to the output directory, then print what was computed, "
+        "single maps at the time of the strongest ascent, a vertical section across it, and the run page index.html) "
+        "to the output directory, then print what was computed, "
         "where the strongest forced ascent is, which term dominates there, and the wall time. The demo replaces "
         "its own previous outputs (a directory carrying its .qgforce-demo marker) and refuses any other existing, "
         "non-empty directory unless --overwrite.",
@@ -176,7 +177,9 @@ COMMANDS = {
         "chosen levels to PNG files with predictable names, and one summary figure per time. Default fields: "
         "the summary fields; default level per field: 850 hPa for temperature advection and frontogenesis, "
         "500 hPa otherwise. Geopotential-height contours are drawn on every map, Q-vectors on the Q-vector "
-        "forcing maps.",
+        "forcing maps. The run page index.html beside the PNG files offers every map of the directory (pick field, "
+        "level and time; arrow keys step). A rerun keeps the files a run with the same inputs and options finished "
+        "(an interrupted run completes); --overwrite redraws them.",
         ("files", "output_dir", "fields", "levels", "times", "region", "form", "smoothing", "coriolis",
          "f0_latitude", "summary", "dpi", "width_px", "projection", "overwrite", "resume", "names",
          "skip_bad_files", "quiet", "config"),
@@ -744,7 +747,6 @@ def _error_line(exc: BaseException) -> str:
 _PYTHON_ADVICE = (
     (r"\(pass domain=\.\.\.[^)]*\)", "(choose the region with --region LAT0,LAT1,LON0,LON1)"),
     (r"pass domain=\.\.\.", "choose the region with --region LAT0,LAT1,LON0,LON1"),
-    (r"pass units=\{'(\w+)': '([^']*)'\}", r"pass --units \1=\2"),
     (r"choose f0_latitude explicitly \(e\.g\. (\d+)\) or a domain", r"give --f0-latitude (e.g. \1) or a --region"),
     (r"set ds\[('[^']*')\]\.attrs\['units'\] \(for example to ('[^']*')\)",
      r"give the variable \1 a units attribute in the file (for example \2)"),
