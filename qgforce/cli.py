@@ -10,6 +10,8 @@ Subcommands::
     qgforce maps      FILE... [--output-dir DIR] [--fields ...] [--levels ...] [--times ...]
                       [--summary/--no-summary] [--dpi N] [--width-px N] [--projection auto|plain]
                       [--overwrite] [--quiet] (+ the computing options of compute)
+    qgforce section   FILE... --start LAT,LON --end LAT,LON [--fields ...] [--times ...] [--points N]
+                      [--prefix P] [--output-dir DIR] [--dpi N] [--overwrite] [--names ...] [--quiet]
     qgforce selfcheck [--quick]
 
 Every subcommand takes ``--config FILE``: a TOML file whose table named like the subcommand
@@ -18,7 +20,7 @@ Every subcommand takes ``--config FILE``: a TOML file whose table named like the
 command-line flags override the file, ``[compute]`` overrides ``[defaults]``.
 
 Exit status: 0 on success; 2 for a user error (bad path, unreadable file, missing variable, bad
-option value, existing output without ``--overwrite``), reported as one line
+option value, contradictory options, existing output without ``--overwrite``), reported as one line
 ``qgforce: error: ...`` on standard error with nothing written; 1 when the self-check fails;
 130 when interrupted.  The work itself lives in :mod:`qgforce.jobs`; this module only parses,
 checks and prints.
@@ -102,8 +104,18 @@ _OPTIONS = {o.dest: o for o in (
             "int", metavar="N"),
     _Option("projection", ("--projection",), "map axes: auto (cartopy when installed) or plain longitude-latitude "
             "axes (much faster)", "choice", default="auto", choices=("auto", "plain")),
+    _Option("resume", ("--resume",), "keep the PNG files a previous run with the same options finished and "
+            "draw only the missing ones (--no-resume: refuse existing files unless --overwrite)", "bool",
+            default=True),
+    _Option("start", ("--start",), "start of the section in degrees, latitude first (e.g. 52.5,-20 or -35,150)",
+            "point", metavar="LAT,LON"),
+    _Option("end", ("--end",), "end of the section in degrees, latitude first", "point", metavar="LAT,LON"),
+    _Option("points", ("--points",), "points along the section, both ends included", "int", default=120,
+            metavar="N"),
+    _Option("prefix", ("--prefix",), "start of the section file names", "text", default="section", metavar="P"),
     _Option("quick", ("--quick",), "two resolutions per case instead of three (faster)", "flag", default=False),
-    _Option("quiet", ("-q", "--quiet"), "no progress bar, summary or cautions (errors and warnings still shown)",
+    _Option("quiet", ("-q", "--quiet"), "no progress bar, summary or cautions; only the line saying what was "
+            "written (errors and warnings still shown)",
             "flag", default=False),
     _Option("config", ("--config",), "TOML file with options under [defaults] and [<subcommand>]", "path",
             metavar="FILE"),
@@ -127,7 +139,8 @@ COMMANDS = {
         "run the main job on the bundled demo data (NetCDF results, PNG maps, a summary)",
         "Compute every forcing diagnostic and invert the QG omega equation in both forms for the bundled, "
         "invented demo scenario; write one NetCDF file of results and PNG maps (a summary figure per time and "
-        "single maps at the time of the strongest ascent) to the output directory, then print what was computed, "
+        "single maps at the time of the strongest ascent, a vertical section across it, and the run page index.html) "
+        "to the output directory, then print what was computed, "
         "where the strongest forced ascent is, which term dominates there, and the wall time. The demo replaces "
         "its own previous outputs (a directory carrying its .qgforce-demo marker) and refuses any other existing, "
         "non-empty directory unless --overwrite.",
@@ -164,11 +177,26 @@ COMMANDS = {
         "chosen levels to PNG files with predictable names, and one summary figure per time. Default fields: "
         "the summary fields; default level per field: 850 hPa for temperature advection and frontogenesis, "
         "500 hPa otherwise. Geopotential-height contours are drawn on every map, Q-vectors on the Q-vector "
-        "forcing maps.",
+        "forcing maps. The run page index.html beside the PNG files offers every map of the directory (pick field, "
+        "level and time; arrow keys step). A rerun keeps the files a run with the same inputs and options finished "
+        "(an interrupted run completes); --overwrite redraws them.",
         ("files", "output_dir", "fields", "levels", "times", "region", "form", "smoothing", "coriolis",
-         "f0_latitude", "summary", "dpi", "width_px", "projection", "overwrite", "names", "quiet", "config"),
+         "f0_latitude", "summary", "dpi", "width_px", "projection", "overwrite", "resume", "names",
+         "skip_bad_files", "quiet", "config"),
         {"output_dir": "qgforce_maps", "fields": None},
         _MAP_PATTERN_HELP,
+    ),
+    "section": (
+        "draw great-circle vertical sections (pressure against distance) of chosen fields to PNG",
+        "Compute the chosen fields (default: temperature advection and whichever of omega_total, frontogenesis "
+        "and q_vector_forcing the input allows) and draw each, at each chosen time, on the vertical section along "
+        "the great circle from --start to --end: pressure on a log axis, potential-temperature contours, and the "
+        "in-plane circulation (along-section wind and -omega) where the inputs define it.",
+        ("files", "start", "end", "fields", "times", "points", "prefix", "output_dir", "dpi", "overwrite", "region",
+         "form", "smoothing", "coriolis", "f0_latitude", "names", "quiet", "config"),
+        {"output_dir": "qgforce_sections", "fields": None},
+        "PNG file names: {prefix}_{field}_{YYYYmmddTHHMM}.png, e.g. section_omega_total_20461119T0600.png. "
+        "Negative coordinates may follow a space: --start -35,150.",
     ),
     "selfcheck": (
         "check the numerics against analytic cases; exit 1 if any case fails",
@@ -182,7 +210,17 @@ COMMANDS = {
 
 
 class _Parser(argparse.ArgumentParser):
-    """argparse without its exit: a usage error becomes one ``qgforce: error:`` line."""
+    """argparse without its exit: a usage error becomes one ``qgforce: error:`` line.
+
+    A value that starts with a minus sign and a digit (``--region -40,-20,0,50``, ``--start
+    -30,150``) is a value, not an option (argparse alone accepts only one plain negative number).
+    """
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        from .jobs.section import _NEGATIVE_VALUE
+
+        self._negative_number_matcher = _NEGATIVE_VALUE  # argparse's hook for "a negative number is a value"
 
     def error(self, message):
         raise InputDataError(f"{message} (see '{self.prog} --help')")
@@ -232,6 +270,19 @@ def _fail(where: str, message: str):
     raise OptionError(f"{where}: {message}")
 
 
+#: Longest value a message quotes in full (a longer one is shown by its start and its length).
+_SHOWN_CHARS = 80
+
+
+def _shown(value) -> str:
+    """``repr(value)``, or its start and its size when long: a message never echoes a huge value."""
+    text = repr(value)
+    if len(text) <= _SHOWN_CHARS:
+        return text
+    size = f"{len(value)} items" if isinstance(value, (list, tuple, dict)) else f"{len(text)} characters"
+    return f"{text[:40]}... ({size})"
+
+
 def _shared(parser, value, where: str):
     """``parser(value)`` of :mod:`qgforce.jobs.choices` (the rules the jobs apply), its message prefixed with the option."""
     try:
@@ -248,23 +299,23 @@ def _text_list(value, where) -> list[str]:
         out = []
         for v in value:
             if isinstance(v, (dict, list)):
-                _fail(where, f"expected a list of plain values, found {value!r}")
+                _fail(where, f"expected a list of plain values, found {_shown(value)}")
             out.extend(_text_list(str(v), where))
         return out
     if isinstance(value, (int, float)) and not isinstance(value, bool):
         return [str(value)]
-    _fail(where, f"expected a comma-separated string or a list, found {value!r}")
+    _fail(where, f"expected a comma-separated string or a list, found {_shown(value)}")
 
 
 def _number(text, where, kind=float):
     if isinstance(text, bool):
-        _fail(where, f"expected a number, found {text!r}")
+        _fail(where, f"expected a number, found {_shown(text)}")
     try:
         value = kind(text) if kind is float else int(str(text).strip())
     except (TypeError, ValueError):
-        _fail(where, f"expected {'a whole number' if kind is int else 'a number'}, found {text!r}")
+        _fail(where, f"expected {'a whole number' if kind is int else 'a number'}, found {_shown(text)}")
     if kind is float and not (value == value and abs(value) != float("inf")):
-        _fail(where, f"expected a finite number, found {text!r}")
+        _fail(where, f"expected a finite number, found {_shown(text)}")
     return value
 
 
@@ -273,16 +324,16 @@ def _convert(opt: _Option, value, where: str, base: Path | None):
     kind = opt.kind
     if kind in ("bool", "flag"):
         if not isinstance(value, bool):
-            _fail(where, f"expected true or false, found {value!r}")
+            _fail(where, f"expected true or false, found {_shown(value)}")
         return value
     if kind == "files":
         items = [value] if isinstance(value, str) else value
         if not isinstance(items, (list, tuple)) or not all(isinstance(v, str) for v in items):
-            _fail(where, f"expected a file name or a list of file names, found {value!r}")
+            _fail(where, f"expected a file name or a list of file names, found {_shown(value)}")
         return [_relative(v, base) for v in items]
     if kind == "path":
         if not isinstance(value, str) or not value.strip():
-            _fail(where, f"expected a path, found {value!r}")
+            _fail(where, f"expected a path, found {_shown(value)}")
         return _relative(value, base)
     if kind == "fields":
         items = _text_list(value, where)
@@ -311,14 +362,18 @@ def _convert(opt: _Option, value, where: str, base: Path | None):
     if kind == "region":
         items = _text_list(value, where)
         if len(items) != 4:
-            _fail(where, f"expected four numbers LAT0,LAT1,LON0,LON1 (degrees), found {value!r}")
+            _fail(where, f"expected four numbers LAT0,LAT1,LON0,LON1 (degrees), found {_shown(value)}")
         from .jobs.choices import region_numbers
 
         return _shared(region_numbers, [_number(v, where) for v in items], where)
+    if kind == "point":
+        from .jobs.section import parse_point
+
+        return _shared(lambda v: parse_point(v, "point"), value, where)
     if kind == "choice":
         text = str(value).strip().lower() if isinstance(value, str) else value
         if text not in opt.choices:
-            _fail(where, f"expected one of {', '.join(opt.choices)}, found {value!r}")
+            _fail(where, f"expected one of {', '.join(opt.choices)}, found {_shown(value)}")
         return text
     if kind == "float":
         number = _number(value, where)
@@ -343,11 +398,11 @@ def _convert(opt: _Option, value, where: str, base: Path | None):
                     _fail(where, f"expected CANONICAL=NAME pairs such as temperature=ta; found {item!r}")
                 pairs.append((key.strip(), name.strip()))
         if not all(isinstance(k, str) and isinstance(v, str) for k, v in pairs):
-            _fail(where, f"expected names as text, found {value!r}")
+            _fail(where, f"expected names as text, found {_shown(value)}")
         return dict(pairs)
     if kind == "text":
         if not isinstance(value, str):
-            _fail(where, f"expected text, found {value!r}")
+            _fail(where, f"expected text, found {_shown(value)}")
         return value.strip()
     raise AssertionError(f"unknown option kind {kind!r}")  # pragma: no cover - a bug in the table
 
@@ -366,7 +421,16 @@ def _load_config(path: str) -> dict:
         import tomli as tomllib
     try:
         with open(path, "rb") as fh:
-            data = tomllib.load(fh)
+            raw = fh.read(_CONFIG_MAX_BYTES + 1)
+        if len(raw) > _CONFIG_MAX_BYTES:
+            raise InputDataError(f"config file {path!r} is larger than {_CONFIG_MAX_BYTES // 1024} KiB; an option "
+                                 "file is a few lines (file lists belong on the command line or in a glob)")
+        data = tomllib.loads(raw.decode("utf-8"))
+    except RecursionError:
+        raise InputDataError(f"config file {path!r} nests arrays or tables too deeply to read; option values are "
+                             f"plain values or lists of them (at most {_CONFIG_MAX_DEPTH} levels)") from None
+    except UnicodeDecodeError as exc:
+        raise InputDataError(f"config file {path!r} is not UTF-8 text: {exc.reason} at byte {exc.start}") from None
     except FileNotFoundError:
         raise InputDataError(f"config file not found: {path!r}") from None
     except OSError as exc:
@@ -381,8 +445,35 @@ def _load_config(path: str) -> dict:
                 + ", ".join(f"[{t}]" for t in known_tables)
             )
         if not isinstance(content, dict):
-            raise InputDataError(f"config file {path!r}: {table} must be a table [{table}], found {content!r}")
+            raise InputDataError(f"config file {path!r}: {table} must be a table [{table}], found {_shown(content)}")
+        for key, value in content.items():
+            _check_config_value(value, f"config file {path!r}: [{table}] {key}")
     return data
+
+
+#: Limits of a config file: its size, the nesting of its values, items per list, characters per text.
+_CONFIG_MAX_BYTES = 1 << 20
+_CONFIG_MAX_DEPTH = 3
+_CONFIG_MAX_ITEMS = 10000
+_CONFIG_MAX_CHARS = 4096
+
+
+def _check_config_value(value, where: str) -> None:
+    """Refuse a config value nested deeper, longer or larger than any option needs (no recursion)."""
+    stack = [(value, 1)]
+    while stack:
+        item, depth = stack.pop()
+        if depth > _CONFIG_MAX_DEPTH:
+            raise InputDataError(f"{where}: values nested more than {_CONFIG_MAX_DEPTH} levels deep; an option is a "
+                                 "plain value, a list of plain values or a table of them")
+        if isinstance(item, str) and len(item) > _CONFIG_MAX_CHARS:
+            raise InputDataError(f"{where}: a text of {len(item)} characters; at most {_CONFIG_MAX_CHARS} are "
+                                 "accepted (a path, a list of names or a time range is far shorter)")
+        if isinstance(item, (list, dict)):
+            if len(item) > _CONFIG_MAX_ITEMS:
+                raise InputDataError(f"{where}: {len(item)} items; at most {_CONFIG_MAX_ITEMS} are accepted")
+            children = item.values() if isinstance(item, dict) else item
+            stack.extend((child, depth + 1) for child in children)
 
 
 def _config_options(data: dict, command: str, path: str) -> tuple[dict, dict]:
@@ -433,6 +524,24 @@ def _resolve(ns: argparse.Namespace, command: str) -> dict:
     return values
 
 
+#: Options that contradict each other: (option, its value or None for "given", other option, why).
+_CONTRADICTIONS = (
+    ("coriolis", "local", "f0_latitude", "--coriolis local uses f at each latitude, so there is no reference "
+     "latitude to set; use --coriolis f0 with --f0-latitude, or drop --f0-latitude"),
+    ("scheduler", None, "workers", "--scheduler computes on a running cluster and --workers starts a local one; "
+     "give one of them"),
+)
+
+
+def _refuse_contradictions(opts: dict) -> None:
+    for first, value, second, why in _CONTRADICTIONS:
+        a, b = opts.get(first), opts.get(second)
+        if b is not None and (a == value if value is not None else a is not None):
+            given = " and ".join(f"{_flag_name(_OPTIONS[d])} {v:g}" if isinstance(v, float) else
+                                 f"{_flag_name(_OPTIONS[d])} {v}" for d, v in ((first, a), (second, b)))
+            raise OptionError(f"{given} contradict each other: {why}")
+
+
 def _flag_name(opt: _Option) -> str:
     return opt.flags[-1] if opt.flags else "FILE"
 
@@ -469,8 +578,7 @@ def _run_demo(opts: dict, argv: list) -> int:
 
     _use_agg()
     report = run_demo(opts["output_dir"], overwrite=bool(opts["overwrite"]), progress=_progress_wanted(opts["quiet"]))
-    if not opts["quiet"]:
-        print(report.text(caution=True), flush=True)
+    print(report.written_line() if opts["quiet"] else report.text(caution=True), flush=True)
     return 0
 
 
@@ -535,10 +643,10 @@ def _run_compute(opts: dict, argv: list) -> int:
             )
     finally:
         ds.close()
-    skipped = ds.attrs.get("qgforce_skipped_files")
-    if skipped:
-        print(f"{_PROG}: skipped unreadable input file(s): " + ", ".join(skipped.split()), file=sys.stderr)
-    if not opts["quiet"]:
+    _report_skipped(ds)
+    if opts["quiet"]:
+        print(f"wrote {path}", flush=True)
+    else:
         names = list(results.data_vars)
         tdim = "time" if "time" in results.dims else None
         shape = (f"{results.sizes[tdim]} time(s) x " if tdim else "") + f"{results.sizes['level']} level(s)"
@@ -554,6 +662,13 @@ def _run_compute(opts: dict, argv: list) -> int:
     return 0
 
 
+def _report_skipped(ds) -> None:
+    """The input files left out by --skip-bad-files, on standard error."""
+    skipped = ds.attrs.get("qgforce_skipped_files")
+    if skipped:
+        print(f"{_PROG}: skipped unreadable input file(s): " + ", ".join(skipped.split()), file=sys.stderr)
+
+
 def _run_maps(opts: dict, argv: list) -> int:
     from .jobs._common import CAUTION_TEXT
     from .jobs.describe import expand_sources, open_inputs
@@ -561,22 +676,36 @@ def _run_maps(opts: dict, argv: list) -> int:
 
     start = time.perf_counter()
     _use_agg()
+    from .jobs.runpage import records_from_files, write_run_page
+
     paths = expand_sources(_need_files(opts, "maps"))
-    ds = open_inputs(paths, names=opts.get("names"))
+    ds = open_inputs(paths, names=opts.get("names"), on_bad_file="skip" if opts.get("skip_bad_files") else "raise")
+    kept = []
     try:
         written = make_maps(
             ds, opts["output_dir"], fields=opts.get("fields"), levels=opts.get("levels"), times=opts.get("times"),
             summary=bool(opts["summary"]), dpi=opts["dpi"], width_px=opts.get("width_px"),
             overwrite=bool(opts["overwrite"]), projection=opts["projection"], progress=_progress_wanted(opts["quiet"]),
-            **_compute_options(opts),
+            resume=bool(opts["resume"]), kept=kept, **_compute_options(opts),
         )
     finally:
         ds.close()
-    if not opts["quiet"]:
-        shown = ", ".join(p.name for p in written[:4]) + (", ..." if len(written) > 4 else "")
-        print(f"wrote {len(written)} PNG file(s) to {opts['output_dir']}/: {shown}\n{CAUTION_TEXT}\n"
-              f"wall time: {time.perf_counter() - start:.1f} s", flush=True)
+    _report_skipped(ds)
+    out = Path(os.path.expanduser(opts["output_dir"]))
+    records = records_from_files(out)  # every map of the directory, this run's and earlier runs'
+    page = write_run_page(out, records, overwrite=True)
+    line = (f"wrote {len(written)} PNG file(s) to {out}/" + (f" (kept {len(kept)} finished earlier)" if kept else "")
+            + f"; run page {page} ({len(records)} maps)")
+    print(line if opts["quiet"] else f"{line}\n{CAUTION_TEXT}\nwall time: {time.perf_counter() - start:.1f} s",
+          flush=True)
     return 0
+
+
+def _run_section(opts: dict, argv: list) -> int:
+    from .jobs.section import run_section
+
+    _use_agg()
+    return run_section({**opts, "fields": None if opts.get("fields") == "all" else opts.get("fields")})
 
 
 def _run_selfcheck(opts: dict, argv: list) -> int:
@@ -596,7 +725,7 @@ def _run_selfcheck(opts: dict, argv: list) -> int:
 
 
 _HANDLERS = {"demo": _run_demo, "inspect": _run_inspect, "compute": _run_compute, "maps": _run_maps,
-             "selfcheck": _run_selfcheck}
+             "selfcheck": _run_selfcheck, "section": _run_section}
 
 
 def _error_line(exc: BaseException) -> str:
@@ -611,11 +740,49 @@ def _error_line(exc: BaseException) -> str:
         text = text.replace(library_words, option_words)
     text = re.sub(r"pass names=\{'(\w+)': '[^']*'\}(?: to open_dataset)?", r"pass --names \1=<name in the file>", text)
     text = text.replace("pass on_bad_file='skip'", "pass --skip-bad-files (compute)")
-    return text
+    return _option_words(text)
+
+
+#: The library's advice in Python words -> the command line's (patterns of :func:`_option_words`).
+_PYTHON_ADVICE = (
+    (r"\(pass domain=\.\.\.[^)]*\)", "(choose the region with --region LAT0,LAT1,LON0,LON1)"),
+    (r"pass domain=\.\.\.", "choose the region with --region LAT0,LAT1,LON0,LON1"),
+    (r"choose f0_latitude explicitly \(e\.g\. (\d+)\) or a domain", r"give --f0-latitude (e.g. \1) or a --region"),
+    (r"set ds\[('[^']*')\]\.attrs\['units'\] \(for example to ('[^']*')\)",
+     r"give the variable \1 a units attribute in the file (for example \2)"),
+)
+
+
+def _option_words(text: str) -> str:
+    """``name=value`` of a known option becomes its flag (``overwrite=True`` -> ``--overwrite``,
+    ``summary=False`` -> ``--no-summary``, ``form='both'`` -> ``--form both``); a flag then
+    repeated in parentheses beside itself is said once; the advice of :data:`_PYTHON_ADVICE` is
+    reworded."""
+    for pattern, words in _PYTHON_ADVICE:
+        text = re.sub(pattern, words, text)
+
+    def flag(m):
+        opt = _OPTIONS[m.group(1)]
+        name, value = _flag_name(opt), m.group(2).strip("'\"")
+        if opt.kind in ("bool", "flag") and value in ("True", "False"):
+            return name if value == "True" else "--no-" + name[2:]
+        return f"{name} {value}"
+
+    dests = "|".join(sorted((d for d, o in _OPTIONS.items() if o.flags), key=len, reverse=True))
+    text = re.sub(rf"\b({dests})=('[^']*'|\"[^\"]*\"|[\w.+-]+)", flag, text)
+    text = re.sub(r"(--[\w-]+(?: [\w.,+-]+)?) \(\1\)", r"\1", text)  # "--overwrite (--overwrite)"
+    return re.sub(r"\((--[\w-]+), \1\)", r"(\1)", text)  # "(--no-summary, --no-summary)"
+
+
+_SHOWN_WARNINGS: set = set()
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):
-    text = " ".join(str(message).split())
+    """One line per distinct warning (the library warns once per level or time; the reader wants it once)."""
+    text = _option_words(" ".join(str(message).split()))
+    if (category, text) in _SHOWN_WARNINGS:
+        return
+    _SHOWN_WARNINGS.add((category, text))
     print(f"{_PROG}: warning: {text} [{category.__name__}]", file=sys.stderr, flush=True)
 
 
@@ -633,6 +800,7 @@ def main(argv=None) -> int:
         0 success, 1 failed self-check, 2 user error, 130 interrupted.
     """
     argv = list(sys.argv[1:] if argv is None else argv)
+    _SHOWN_WARNINGS.clear()
     with warnings.catch_warnings():
         warnings.showwarning = _show_warning
         try:
@@ -644,6 +812,7 @@ def main(argv=None) -> int:
             if ns.command is None:
                 raise InputDataError("choose a subcommand: " + ", ".join(COMMANDS) + f" (see '{_PROG} --help')")
             opts = _resolve(ns, ns.command)
+            _refuse_contradictions(opts)
             return _HANDLERS[ns.command](opts, argv)
         except (QGForceError, FileNotFoundError, PermissionError, IsADirectoryError, NotADirectoryError) as exc:
             print(f"{_PROG}: error: {_error_line(exc)}", file=sys.stderr, flush=True)

@@ -1013,7 +1013,7 @@ def summary_figure(results, *, time=None, level=None, fields=None, omega_level=N
     ncols : int, optional
         Panels per row (default 3; 4 for 7 or 8 panels).
     figsize : (float, float), optional
-        Inches; default 4.6 × 3.9 per panel plus 0.6 for the title and the caution line.
+        Inches; default 4.6 × 3.9 per panel, plus 0.6 in of height for the title and caution.
     projection : cartopy.crs.Projection or False, optional
         As for :func:`map_field`, shared by all panels.
     options : mapping, optional

@@ -52,6 +52,7 @@ from scipy.ndimage import correlate1d
 from .calculus import apply_horizontal
 from .errors import GridError, InputDataError
 from .grid import Grid
+from ._smoothing_check import check_smoothing
 
 __all__ = ["METHODS", "gaussian", "five_point", "nine_point", "smooth"]
 
@@ -94,6 +95,15 @@ def _passes(value) -> int:
     if isinstance(value, bool) or not isinstance(value, numbers.Integral) or int(value) < 1:
         raise InputDataError(f"passes must be a positive integer (1, 2, ...); found {value!r}")
     return int(value)
+
+
+def _check_values(method: str, kwargs: dict) -> None:
+    """The range checks of the filters' arguments, before the grid checks use them."""
+    if method == "gaussian":
+        _number(kwargs["length_km"], "length_km (the standard deviation sigma of the Gaussian, in km)")
+    else:
+        _passes(kwargs.get("passes", 1))
+        _number(kwargs.get("weight", 0.5), "weight (the smoothing element)", high=1.0)
 
 
 def _grid(da, grid: Grid | None) -> Grid:
@@ -682,6 +692,16 @@ def smooth(da: xr.DataArray, smoothing, grid: Grid | None = None) -> tuple[xr.Da
     InputDataError
         If the specification is not one of the accepted forms (the message lists them), or
         a length, number of passes or weight is out of range.
+    OptionError
+        If the filter would reduce the fields to their domain mean (every derivative zero) or
+        asks for more than :data:`qgforce._smoothing_check.MAX_POINT_PASSES` passes
+        (:func:`qgforce._smoothing_check.check_smoothing`).
+
+    Warns
+    -----
+    qgforce._smoothing_check.SmoothingWarning
+        The filter removes half or more of the synoptic scale, or a Gaussian is narrower than
+        half the grid length.
 
     Examples
     --------
@@ -699,6 +719,9 @@ def smooth(da: xr.DataArray, smoothing, grid: Grid | None = None) -> tuple[xr.Da
     method, kwargs = _parse(smoothing)
     if method is None:
         return da, "none"
+    grid = _grid(da, grid)
+    _check_values(method, kwargs)
+    check_smoothing(smoothing if isinstance(smoothing, str) else str(dict(smoothing)), method, kwargs, grid)
     if method == "gaussian":
         return _gaussian(
             da, kwargs["length_km"], grid, kwargs.get("truncate", 3.0), kwargs.get("min_weight", 0.5)

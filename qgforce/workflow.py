@@ -62,7 +62,7 @@ from .jobs.compute import (LIFTING_FIELDS, LIFTING_HORIZON_HOURS, atomic_output,
                            check_output_file, compute_to_netcdf, write_netcdf)
 from .jobs.demo import DEMO_MARKER, DEMO_RESULTS_FILE, DemoReport, check_demo_directory, run_demo  # noqa: F401
 from .jobs.describe import InputDescription, describe_inputs, expand_sources, open_inputs  # noqa: F401
-from .jobs.maps import (MAP_NAME_PATTERN, SUMMARY_NAME_PATTERN, _MapJob, draw_maps, make_maps,  # noqa: F401
+from .jobs.maps import (MAP_NAME_PATTERN, RUN_RECORD, SUMMARY_NAME_PATTERN, _MapJob, draw_maps, make_maps,  # noqa: F401
                         map_file_name, plan_maps)
 from .omega import Ascent, strongest_ascent  # noqa: F401
 
@@ -78,6 +78,7 @@ __all__ = [
     "DEMO_RESULTS_FILE",
     "MAP_NAME_PATTERN",
     "SUMMARY_NAME_PATTERN",
+    "RUN_RECORD",
     "FORMS",
     # inputs
     "expand_sources",

@@ -12,12 +12,14 @@ arithmetic of its own.  Metadata checks name the CF section they follow.
 from __future__ import annotations
 
 import importlib.util
+import io
 import os
 import re
 import subprocess
 import sys
 from pathlib import Path
 
+import matplotlib.image as mpimg
 import numpy as np
 import pytest
 import xarray as xr
@@ -130,6 +132,43 @@ def test_demo_attribution_matches_the_terms_in_the_file(demo_run):
     assert ascent.terms[0][2] == pytest.approx(float(at[f"omega_{dominant}"]) / float(at["omega_total"]), rel=1e-6)
 
 
+def test_demo_draws_a_section_and_a_run_page_in_headless_chromium(demo_run, browser):
+    """The demo's index.html refers only to PNG files that exist; in Chromium every image loads, the
+    controls switch to the demo's section, and the page raises no console error."""
+    cwd, proc = demo_run
+    assert proc.returncode == 0, proc.stderr
+    out = cwd / "out"
+    page = out / "index.html"
+    files = re.findall(r'"file": "([^"]+)"', page.read_text(encoding="utf-8"))
+    pngs = {n for n in files_in(out) if n.endswith(".png")}
+    assert set(files) == pngs and all((out / f).is_file() for f in files)
+    sections = sorted(n for n in pngs if n.startswith("section_"))
+    assert [n.rsplit("_", 1)[0] for n in sections] == ["section_frontogenesis", "section_omega_total"]
+    assert "2 section(s) (section_<field>_<time>.png) and the run page out/index.html" in proc.stdout
+    browser.open(page.resolve().as_uri())
+    failed = browser.evaluate(
+        "Promise.all(JSON.parse(document.getElementById('maps-data').textContent).map((m) => new Promise((ok) => {"
+        " const i = new Image(); i.onload = () => ok(i.naturalWidth > 0 ? null : m.file);"
+        " i.onerror = () => ok(m.file); i.src = m.file; }))).then((r) => r.filter((x) => x))", await_promise=True)
+    assert failed == []
+    browser.evaluate("(() => { const s = document.getElementById('field'); s.value = 'section_omega_total';"
+                     " s.dispatchEvent(new Event('change')); })()")
+    src = browser.evaluate("document.getElementById('map').src")
+    assert src.endswith(sections[1])
+    loaded = browser.evaluate("new Promise((ok) => { const i = document.getElementById('map');"
+                              " const done = () => ok(i.complete && i.naturalWidth > 0);"
+                              " if (i.complete) done(); else { i.onload = done; i.onerror = done; } })",
+                              await_promise=True)
+    assert loaded
+    shot = mpimg.imread(io.BytesIO(browser.screenshot()), format="png")[..., :3]
+    assert shot.shape[0] > 300 and shot.std() > 0.05  # the section and the controls are drawn
+    browser.evaluate("(() => { const s = document.getElementById('field'); s.value = 'summary';"
+                     " s.dispatchEvent(new Event('change')); })()")
+    browser.press("ArrowLeft", 37)
+    assert "time 4 of 5" in browser.evaluate("document.getElementById('position').textContent")
+    assert browser.problems() == []
+
+
 def test_demo_refuses_a_foreign_directory(tmp_path, capsys):
     foreign = tmp_path / "mine"
     foreign.mkdir()
@@ -230,7 +269,7 @@ def test_compute_default_float32_and_region_reference_latitude(small, tmp_path, 
     out = tmp_path / "f32.nc"
     assert main(["compute", str(small), "-o", str(out), "--fields", "omega_total", "--region", "35,60,210,260",
                  "--times", "2046-11-19T06", "-q"]) == 0
-    assert capsys.readouterr().out == ""  # --quiet: no summary chatter
+    assert capsys.readouterr().out == f"wrote {out}\n"  # --quiet: no summary chatter, only what was written
     ds = qgforce.io.open_dataset(small, chunks=None)
     # the documented default: f0 at the area-weighted mean latitude of the region (Grid.area_mean_weights)
     cut = ds.sel(latitude=slice(35, 60), longitude=slice(210, 260))
@@ -331,7 +370,7 @@ def test_config_file_values_flags_override_and_unknown_keys(small, tmp_path, cap
         "fields = ['temperature_advection']\nlevels = [850]\nomega = false\n"
     )
     assert main(["compute", "--config", str(cfg)]) == 0
-    assert capsys.readouterr().out == ""  # quiet from [defaults]
+    assert capsys.readouterr().out == f"wrote {tmp_path / 'from_config.nc'}\n"  # quiet from [defaults]
     with xr.open_dataset(tmp_path / "from_config.nc") as got:  # relative to the config file's directory
         assert list(got.data_vars) == ["temperature_advection"]
         assert got["level"].values.tolist() == [85000.0]
@@ -368,7 +407,8 @@ def test_maps_names_pixel_sizes_and_refusal(small, tmp_path, capsys):
     assert main(argv) == 0
     t = stamp("2046-11-19T06:00")
     # the documented pattern {field}_{level}hPa_{YYYYmmddTHHMM}.png and summary_{YYYYmmddTHHMM}.png
-    assert files_in(out) == {f"omega_total_500hPa_{t}.png", f"frontogenesis_500hPa_{t}.png", f"summary_{t}.png"}
+    assert files_in(out) == {f"omega_total_500hPa_{t}.png", f"frontogenesis_500hPa_{t}.png", f"summary_{t}.png",
+                             "index.html", W.RUN_RECORD}  # the run page and the record a resumed run must match
     # --width-px: exactly that width, the height keeping the figure's aspect ratio (qgforce.plot.save_figure
     # writes figure size x dpi pixels).  The map's aspect is that of the figure plot.map_field makes ...
     dummy = xr.DataArray(np.ones((3, 4)), dims=("latitude", "longitude"),
@@ -382,7 +422,8 @@ def test_maps_names_pixel_sizes_and_refusal(small, tmp_path, capsys):
     # 4.6 x 3.9 in each plus 0.6 in (plot.summary_figure docstring)
     assert mpimg.imread(out / f"summary_{t}.png").shape[:2] == (round(333 * (2 * 3.9 + 0.6) / (4 * 4.6)), 333)
     before = {p.name: p.read_bytes() for p in out.iterdir()}
-    assert main(argv) == 2  # refusal to overwrite, checked before anything is drawn
+    capsys.readouterr()  # the drawing's own warnings (tiny panels at 333 px) are not part of the refusal
+    assert main(argv + ["--no-resume"]) == 2  # refusal to overwrite, checked before anything is drawn
     assert_one_error_line(capsys.readouterr().err, "--overwrite")
     assert {p.name: p.read_bytes() for p in out.iterdir()} == before
 
@@ -432,12 +473,17 @@ def test_map_file_name_pattern():
     assert W.map_file_name("frontogenesis", 92500.0, None) == "frontogenesis_925hPa.png"
 
 
-def test_one_truncated_file_among_many_refused_or_skipped(tmp_path, capsys):
-    # issue 6: a truncated download among good files is named; --skip-bad-files completes and reports it
+def parts_with_a_truncated_one(directory: Path) -> None:
+    """part0.nc and part1.nc (the demo's first two times) and part2.nc, a truncated copy (a broken download)."""
     with xr.open_dataset(DEMO) as ds:
         for i in range(2):
-            ds.isel(time=[i]).load().to_netcdf(tmp_path / f"part{i}.nc")
-    (tmp_path / "part2.nc").write_bytes((tmp_path / "part1.nc").read_bytes()[:5000])
+            ds.isel(time=[i]).load().to_netcdf(directory / f"part{i}.nc")
+    (directory / "part2.nc").write_bytes((directory / "part1.nc").read_bytes()[:5000])
+
+
+def test_one_truncated_file_among_many_refused_or_skipped(tmp_path, capsys):
+    # issue 6: a truncated download among good files is named; --skip-bad-files completes and reports it
+    parts_with_a_truncated_one(tmp_path)
     out = tmp_path / "out.nc"
     args = ["compute", str(tmp_path / "part*.nc"), "-o", str(out), "--fields", "temperature_advection",
             "--levels", "850", "--no-omega", "-q"]
@@ -491,7 +537,8 @@ def test_lifting_fields_in_compute_and_maps(small, tmp_path, capsys):
     out = tmp_path / "maps"
     assert main(["maps", str(small), "--output-dir", str(out), "--fields", "hours_to_saturation", "--no-summary",
                  "--projection", "plain", "--dpi", "40", "-q"]) == 0
-    assert files_in(out) == {f"hours_to_saturation_{stamp(t)}.png" for t in ds["time"].values}
+    assert files_in(out) == {f"hours_to_saturation_{stamp(t)}.png" for t in ds["time"].values} | {
+        "index.html", W.RUN_RECORD}
     nc = tmp_path / "lift.nc"
     assert main(["compute", str(small), "-o", str(nc), "--fields", "hours_to_saturation,hours_to_initiation",
                  "-q"]) == 0

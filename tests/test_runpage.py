@@ -5,9 +5,7 @@ The browser test is skipped when Chromium is absent, unless QGFORCE_REQUIRE_BROW
 """
 
 import io
-import os
 import re
-import sys
 from pathlib import Path
 
 import matplotlib
@@ -21,9 +19,6 @@ import pytest  # noqa: E402
 
 from qgforce.errors import InputDataError, OptionError  # noqa: E402
 from qgforce.jobs.runpage import RUN_PAGE_NAME, MapRecord, records_from_files, write_run_page  # noqa: E402
-
-sys.path.insert(0, str(Path(__file__).resolve().parent))
-from _chromium import Browser, chromium_path  # noqa: E402
 
 STAMPS = ("20461119T0600", "20461119T1200", "20461119T1800")
 FIELDS = ("omega_total", "temperature_advection")
@@ -112,25 +107,6 @@ def test_page_data_cannot_close_its_script(run_dir):
 
 
 # ====================================================================== the page in Chromium
-@pytest.fixture
-def browser(tmp_path):
-    exe = chromium_path()
-    required = os.environ.get("QGFORCE_REQUIRE_BROWSER") == "1"
-    if exe is None:
-        if required:
-            pytest.fail("QGFORCE_REQUIRE_BROWSER=1 but no chromium executable was found on PATH")
-        pytest.skip("headless Chromium not found (apt-get install chromium); set QGFORCE_REQUIRE_BROWSER=1 to "
-                    "make this a failure")
-    try:
-        b = Browser(exe, str(tmp_path / "profile"))
-    except (OSError, RuntimeError, TimeoutError) as exc:
-        if required:
-            raise
-        pytest.skip(f"headless Chromium did not start: {exc}")
-    yield b
-    b.close()
-
-
 def _state(b):
     return b.evaluate("({field: document.getElementById('field').value, level: document.getElementById('level').value,"
                       " time: document.getElementById('time').value, src: document.getElementById('map').src,"

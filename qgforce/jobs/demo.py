@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import os
 import time as _time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -19,8 +19,11 @@ from ._common import CAUTION_TEXT, _hpa, _time_dim
 from .compute import LIFTING_FIELDS, LIFTING_HORIZON_HOURS, build_results, write_netcdf
 from .describe import open_inputs
 from .maps import _MapJob, draw_maps, map_file_name, plan_maps
+from .runpage import records_from_files, write_run_page
+from .section import draw_section
 
-__all__ = ["DEMO_MARKER", "DEMO_RESULTS_FILE", "DemoReport", "check_demo_directory", "run_demo"]
+__all__ = ["DEMO_MARKER", "DEMO_RESULTS_FILE", "DEMO_SECTION_FIELDS", "DEMO_SECTION_KM", "DemoReport",
+           "check_demo_directory", "demo_section_line", "run_demo"]
 
 
 #: Name of the marker file by which :func:`run_demo` recognises a directory it wrote.
@@ -29,6 +32,11 @@ DEMO_MARKER = ".qgforce-demo"
 
 #: Name of the NetCDF results file of :func:`run_demo`.
 DEMO_RESULTS_FILE = "qgforce_demo_results.nc"
+
+
+#: Fields of the demo's section across its strongest ascent, and the section's length [km].
+DEMO_SECTION_FIELDS = ("omega_total", "frontogenesis")
+DEMO_SECTION_KM = 3000.0
 
 
 @dataclass
@@ -60,17 +68,25 @@ class DemoReport:
     computed: str
     seconds: float
     initiation: str = ""
+    sections: list = field(default_factory=list)
+    page: Path | None = None
+
+    def written_line(self) -> str:
+        """The one line on what was written (kept by ``qgforce demo --quiet``)."""
+        size = self.netcdf.stat().st_size / 1e6 if self.netcdf.exists() else float("nan")
+        return (f"wrote: {self.netcdf} ({len(self.results.data_vars)} variables, {size:.1f} MB), "
+                f"{len(self.maps)} PNG maps (summary_<time>.png, <field>_<level>hPa_<time>.png)"
+                + (f", {len(self.sections)} section(s) (section_<field>_<time>.png)" if self.sections else "")
+                + (f" and the run page {self.page}" if self.page else f" in {self.output_dir}/"))
 
     def text(self, caution: bool = True) -> str:
         """The printed summary of ``qgforce demo``."""
-        size = self.netcdf.stat().st_size / 1e6 if self.netcdf.exists() else float("nan")
         lines = [
             f"qgforce demo: {self.description}",
             f"computed: {self.computed}",
             self.ascent.text(),
             *([self.initiation] if self.initiation else []),
-            f"wrote: {self.netcdf} ({len(self.results.data_vars)} variables, {size:.1f} MB) and "
-            f"{len(self.maps)} PNG maps in {self.output_dir}/ (summary_<time>.png, <field>_<level>hPa_<time>.png)",
+            self.written_line(),
         ]
         if caution:
             lines.append(CAUTION_TEXT)
@@ -133,7 +149,10 @@ def run_demo(output_dir="qgforce_demo_output", *, overwrite: bool = False, progr
     (:func:`qgforce.forcing.forcing_terms`) and the inversion in the Q-vector form (plain names)
     and the traditional form (suffixed where the names clash); write
     :data:`DEMO_RESULTS_FILE`; draw one summary figure per time and, at the time of the strongest
-    ascent, single maps of ω, the Q-vector forcing, temperature advection and frontogenesis.
+    ascent, single maps of ω, the Q-vector forcing, temperature advection and frontogenesis; a
+    vertical section of ω and frontogenesis across the strongest ascent (:func:`demo_section_line`,
+    :func:`qgforce.jobs.section.draw_section`); and the run page ``index.html`` beside the PNG
+    files (:func:`qgforce.jobs.runpage.write_run_page`).
     """
     from ..scenario import load_demo
 
@@ -174,6 +193,12 @@ def run_demo(output_dir="qgforce_demo_output", *, overwrite: bool = False, progr
             jobs.append(_MapJob("hours_to_saturation", None, t_index, ascent.time,
                                 output_dir / map_file_name("hours_to_saturation", None, ascent.time)))
         maps = draw_maps(results, output_dir, overwrite=True, projection=projection, dpi=dpi, jobs=jobs)
+        bar.set_description("demo: a section across the strongest ascent")
+        sections = draw_section(results, *demo_section_line(ds, ascent), output_dir, inputs=ds,
+                                fields=[n for n in DEMO_SECTION_FIELDS if n in results.data_vars],
+                                time=[ascent.time] if tdim else None, npoints=80, dpi=dpi, overwrite=True)
+        page = write_run_page(output_dir, records_from_files(output_dir, [*maps, *sections]), overwrite=True,
+                              title="qgforce demo: an invented developing cyclone")
         initiation = _initiation_line(results, ascent.time)
         bar.update(2)
     finally:
@@ -204,7 +229,26 @@ def run_demo(output_dir="qgforce_demo_output", *, overwrite: bool = False, progr
     )
     return DemoReport(output_dir=output_dir, netcdf=netcdf, maps=maps, results=results, ascent=ascent,
                       description=description, computed=computed, seconds=_time.perf_counter() - start,
-                      initiation=initiation)
+                      initiation=initiation, sections=sections, page=page)
+
+
+def demo_section_line(ds: xr.Dataset, ascent: Ascent, length_km: float = DEMO_SECTION_KM):
+    """The ends of the demo's section: ``length_km`` of great circle centred on the strongest ascent,
+    along the temperature gradient at its level (from the cold side to the warm side, so across the
+    frontal zone; :func:`qgforce.calculus.gradient`, :func:`qgforce.sections.line_through`).
+    """
+    from ..calculus import gradient
+    from ..sections import line_through
+
+    temperature = ds["temperature"]
+    tdim = _time_dim(ds)
+    if tdim is not None and ascent.time is not None:
+        temperature = temperature.sel({tdim: ascent.time})
+    temperature = temperature.sel(level=ascent.level_pa, method="nearest").load()
+    east, north = (g.sel(latitude=ascent.latitude, longitude=ascent.longitude, method="nearest").item()
+                   for g in gradient(temperature))
+    azimuth = float(np.degrees(np.arctan2(east, north))) if (east or north) else 90.0
+    return line_through((ascent.latitude, ascent.longitude), azimuth, length_km)
 
 
 def _initiation_line(results: xr.Dataset, time) -> str:

@@ -2,8 +2,9 @@
 
 from __future__ import annotations
 
+import json
 import os
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -11,13 +12,16 @@ import numpy as np
 import xarray as xr
 
 from .. import _progress
+from .._version import __version__
+from ..output.atomic import atomic_path
 from .. import variables as V
 from ..errors import InputDataError, MissingVariableError, OptionError
-from ._common import _as_list, _hpa, _stamp, _time_dim
+from ._common import _as_list, _hpa, _input_files, _stamp, _time_dim
 from .choices import levels_pa, select_times
 from .compute import build_results
 
-__all__ = ["MAP_NAME_PATTERN", "SUMMARY_NAME_PATTERN", "map_file_name", "plan_maps", "draw_maps", "make_maps"]
+__all__ = ["MAP_NAME_PATTERN", "SUMMARY_NAME_PATTERN", "RUN_RECORD", "map_file_name", "plan_maps", "draw_maps",
+           "make_maps"]
 
 
 #: File name of one map: field, pressure in hPa, valid time as ``YYYYmmddTHHMM``.  Without a
@@ -139,19 +143,40 @@ def plan_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summ
     return jobs
 
 
-def _check_map_outputs(jobs, output_dir: Path, overwrite: bool) -> None:
+#: The record of the drawing options of the last map run in a directory (what a resumed run must match).
+RUN_RECORD = ".qgforce-maps.json"
+
+
+def _read_record(output_dir: Path) -> dict | None:
+    try:
+        return json.loads((output_dir / RUN_RECORD).read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+
+
+def _check_map_outputs(jobs, output_dir: Path, overwrite: bool, resume: bool = False, record: dict | None = None):
+    """The jobs still to draw: all with ``overwrite``; with ``resume`` those whose file is missing, when
+    the directory's :data:`RUN_RECORD` matches ``record``; otherwise an error when any file exists."""
     if output_dir.exists() and not output_dir.is_dir():
         raise InputDataError(f"the output directory {str(output_dir)!r} is a file")
     if not output_dir.parent.is_dir() and not output_dir.exists():
         raise InputDataError(f"the parent of the output directory {str(output_dir)!r} does not exist; create it first")
     if overwrite:
-        return
+        return list(jobs)
     existing = [j.path for j in jobs if j.path.exists()]
-    if existing:
+    if not existing:
+        return list(jobs)
+    if resume and _read_record(output_dir) == record:
+        return [j for j in jobs if not j.path.exists()]
+    if resume:
         raise InputDataError(
-            f"{len(existing)} of the {len(jobs)} map file(s) exist already (e.g. {str(existing[0])!r}); "
-            "pass --overwrite (overwrite=True) to replace them"
-        )
+            f"{len(existing)} of the {len(jobs)} map file(s) exist already (e.g. {str(existing[0])!r}) but were not "
+            "drawn by a run with these inputs and options, so they cannot be kept; pass --overwrite "
+            "(overwrite=True) to redraw them or choose another output directory")
+    raise InputDataError(
+        f"{len(existing)} of the {len(jobs)} map file(s) exist already (e.g. {str(existing[0])!r}); "
+        "pass --overwrite (overwrite=True) to replace them"
+    )
 
 
 def _size_figure(fig, dpi: float, width_px: int | None) -> float:
@@ -194,7 +219,8 @@ def _draw_one(step: xr.Dataset, job: _MapJob, projection):
 
 def draw_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summary: bool = True, dpi: float = 100,
               width_px: int | None = None, overwrite: bool = False, projection="auto", progress: bool = False,
-              jobs=None) -> list[Path]:
+              jobs=None, resume: bool = False, run_options: Mapping | None = None,
+              kept: list | None = None) -> list[Path]:
     """Draw the maps of :func:`plan_maps` to PNG files (each written atomically).
 
     Parameters
@@ -220,6 +246,15 @@ def draw_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summ
         A progress bar (one step per file) on standard error.
     jobs : list, optional
         A plan from :func:`plan_maps` (otherwise made here).
+    resume : bool
+        Keep the files of the plan that exist (not redrawn) and draw the others, provided the
+        directory's :data:`RUN_RECORD` shows they were drawn from the same inputs with the same
+        options; otherwise existing files are an error (without ``overwrite``).
+    run_options : mapping, optional
+        What else decides the pixels (inputs, computing options), recorded with ``dpi``,
+        ``width_px``, ``projection`` and the version in :data:`RUN_RECORD` before drawing.
+    kept : list, optional
+        The paths kept by ``resume`` are appended to it.
 
     Returns
     -------
@@ -229,7 +264,8 @@ def draw_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summ
     Raises
     ------
     InputDataError
-        See :func:`plan_maps`; existing files without ``overwrite``; bad ``dpi``/``width_px``.
+        See :func:`plan_maps`; existing files without ``overwrite`` (and, with ``resume``, drawn
+        with other options); bad ``dpi``/``width_px``.
 
     Notes
     -----
@@ -250,8 +286,17 @@ def draw_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summ
         raise OptionError(f"projection must be 'auto' or 'plain'; got {projection!r}")
     if jobs is None:
         jobs = plan_maps(results, output_dir, fields=fields, levels=levels, summary=summary)
-    _check_map_outputs(jobs, output_dir, overwrite)
+    record = {"qgforce": __version__, "dpi": dpi, "width_px": width_px, "projection": str(projection),
+              **{k: v if isinstance(v, (str, int, float, bool, type(None))) else str(v)
+                 for k, v in (run_options or {}).items()}}
+    todo = _check_map_outputs(jobs, output_dir, overwrite, resume, json.loads(json.dumps(record)))
+    if kept is not None:
+        drawing = {id(j) for j in todo}
+        kept.extend(j.path for j in jobs if id(j) not in drawing)
+    jobs = todo
     output_dir.mkdir(exist_ok=True)
+    with atomic_path(output_dir / RUN_RECORD, overwrite=True) as tmp:  # before drawing: an interrupted run resumes
+        tmp.write_text(json.dumps(record, indent=1), encoding="utf-8")
     import matplotlib.pyplot as plt
     tdim = _time_dim(results)
     written = []
@@ -277,7 +322,7 @@ def draw_maps(results: xr.Dataset, output_dir, *, fields=None, levels=None, summ
 
 def make_maps(ds: xr.Dataset, output_dir, *, fields=None, levels=None, times=None, summary: bool = True,
               dpi: float = 100, width_px: int | None = None, overwrite: bool = False, projection="auto",
-              progress: bool = False, **options) -> list[Path]:
+              progress: bool = False, resume: bool = False, kept: list | None = None, **options) -> list[Path]:
     """Compute what the maps need (:func:`build_results`) and draw them (:func:`draw_maps`).
 
     Every choice and every output file name is checked before anything is computed or written.
@@ -286,8 +331,9 @@ def make_maps(ds: xr.Dataset, output_dir, *, fields=None, levels=None, times=Non
     ----------
     ds : xarray.Dataset
         A normalised dataset (:func:`open_inputs`).
-    fields, levels, times, summary, dpi, width_px, overwrite, projection, progress
-        See :func:`plan_maps`, :func:`draw_maps`, :func:`select_times`.
+    fields, levels, times, summary, dpi, width_px, overwrite, projection, progress, resume, kept
+        See :func:`plan_maps`, :func:`draw_maps`, :func:`select_times`.  With ``resume`` the run
+        record holds the input files and ``options`` besides the drawing options.
     **options
         ``region``, ``form``, ``smoothing``, ``coriolis``, ``f0_latitude`` for :func:`build_results`.
 
@@ -314,8 +360,20 @@ def make_maps(ds: xr.Dataset, output_dir, *, fields=None, levels=None, times=Non
     else:  # the default set: whichever of the summary fields can be computed
         results = _default_results(ds, names, optional, needed_levels, options)
         names = [n for n in names if n in results.data_vars]
+    run_options = {"inputs": "\n".join(_file_identity(f) for f in _input_files(ds)),
+                   **{k: str(v) for k, v in sorted(options.items())}}
     return draw_maps(results, output_dir, fields=names, levels=levels, summary=summary, dpi=dpi, width_px=width_px,
-                     overwrite=overwrite, projection=projection, progress=progress)
+                     overwrite=overwrite, projection=projection, progress=progress, resume=resume,
+                     run_options=run_options, kept=kept)
+
+
+def _file_identity(path: str) -> str:
+    """A file's absolute path, size and modification time: a changed input is a different run."""
+    try:
+        st = os.stat(path)
+    except OSError:
+        return os.path.abspath(path)
+    return f"{os.path.abspath(path)} {st.st_size} {st.st_mtime_ns}"
 
 
 def _default_results(ds, names, optional, levels, options):

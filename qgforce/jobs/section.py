@@ -148,6 +148,14 @@ def _save_png(fig, path: Path, dpi: float) -> None:
         fig.savefig(tmp, format="png", dpi=dpi)
 
 
+def _colours(name: str) -> str | None:
+    """The field's colour map on the maps (ascent and what forces it at the same, red, end)."""
+    from .._map_style import field_style
+
+    style = field_style(name)
+    return style.cmap if style is not None else None
+
+
 def _point_text(lat: float, lon: float) -> str:
     lon = (lon + 180.0) % 360.0 - 180.0
     return f"{abs(lat):.1f}°{'N' if lat >= 0 else 'S'} {abs(lon):.1f}°{'E' if lon >= 0 else 'W'}"
@@ -273,7 +281,7 @@ def draw_section(results: xr.Dataset, start, end, output_dir, *, inputs: xr.Data
         try:
             plot.cross_section(da, start, end, ax=ax, npoints=npoints, contours=theta,
                                contour_interval=THETA_INTERVAL_K if theta is not None else None,
-                               circulation=circulation,
+                               circulation=circulation, cmap=_colours(name),
                                title=_title(da, start, end, when, theta is not None, note))
             _save_png(fig, path, dpi)
         finally:
@@ -348,6 +356,9 @@ _DEFAULTS = {"files": [], "start": None, "end": None, "fields": None, "times": N
              "prefix": "section", "output_dir": "qgforce_sections", "dpi": 100, "overwrite": False, "names": None,
              "quiet": False}
 
+#: Computing options passed on to :func:`qgforce.jobs.compute.build_results` when given.
+_COMPUTING = ("region", "form", "smoothing", "coriolis", "f0_latitude")
+
 
 def run_section(opts) -> int:
     """Run ``qgforce section`` from parsed options; return the exit status (0).
@@ -357,7 +368,9 @@ def run_section(opts) -> int:
     opts : argparse.Namespace or Mapping
         The values of :func:`add_section_arguments` (missing or None values take the defaults;
         ``start``/``end`` may also be ``"LAT,LON"`` texts or pairs, as from a config file).
-        ``names`` (variable names of the file) and ``quiet`` are used when present.
+        ``names`` (variable names of the file), ``quiet`` and the computing options ``region``,
+        ``form``, ``smoothing``, ``coriolis``, ``f0_latitude`` (as for
+        :func:`qgforce.jobs.compute.build_results`) are used when present.
 
     Raises
     ------
@@ -385,14 +398,17 @@ def run_section(opts) -> int:
         # default: temperature advection (it needs only temperature and geopotential) and whichever
         # of the other section fields the input allows
         wanted = list(fields) if fields else ["temperature_advection"]
+        computing = {k: given[k] for k in _COMPUTING if given.get(k) is not None}
+        if str(computing.get("smoothing", "")).strip().lower() == "none":
+            computing.pop("smoothing")
         results = build_results(ds, fields=wanted, optional_fields=[*SECTION_FIELDS, "omega_total"],
-                                times=o["times"])
+                                times=o["times"], **computing)
         written = draw_section(results, start, end, o["output_dir"], inputs=ds, fields=fields, npoints=o["points"],
                                prefix=o["prefix"], dpi=o["dpi"], overwrite=bool(o["overwrite"]))
     finally:
         ds.close()
-    if not o["quiet"]:
-        print(f"wrote {len(written)} PNG file(s) to {o['output_dir']}/:", flush=True)
+    print(f"wrote {len(written)} PNG file(s) to {o['output_dir']}/" + ("" if o["quiet"] else ":"), flush=True)
+    if not o["quiet"]:  # --quiet keeps the line saying what was written
         for path in written:
             print(f"  {path.name}", flush=True)
     return 0
