@@ -87,6 +87,10 @@ class _Sealed:
 
 #: One part at a time per process: see :func:`_write_part`.
 _PART_LOCK = threading.Lock()
+#: Temporary files of abandoned writes (a part failed): parts not yet started skip them, so a later
+#: part cannot re-create a temporary file after the writer has removed it (netCDF4's append mode
+#: creates a missing file).  Marked and read under :data:`_PART_LOCK`.
+_ABANDONED: set = set()
 
 
 def _close_cached_files() -> None:
@@ -121,6 +125,9 @@ def _write_part(sealed: _Sealed, tmp: str, enc: dict) -> str:
     import dask
 
     with _PART_LOCK:
+        if tmp in _ABANDONED:  # another part failed: this write is being abandoned
+            _ABANDONED.discard(tmp)
+            return tmp
         try:
             with dask.config.set(scheduler="synchronous"):  # this part's chunks, one after another
                 _fill_blocks(sealed.dataset, Path(tmp), enc, None)
@@ -368,7 +375,14 @@ class PendingWrite:
                 del pieces
                 cluster = _active_client(client)
                 if cluster is None:
-                    dask.compute(*tasks)
+                    try:
+                        dask.compute(*tasks)
+                    except BaseException:
+                        # dask's threads may still hold parts: wait for the running one (the lock),
+                        # mark the rest abandoned, then let atomic_paths remove every temporary file
+                        with _PART_LOCK:
+                            _ABANDONED.update(str(t) for t in tmps)
+                        raise
                 else:  # release each finished task at once: a worker keeps what a held task carries
                     from distributed import as_completed
 
