@@ -12,6 +12,9 @@ Subcommands::
                       [--overwrite] [--quiet] (+ the computing options of compute)
     qgforce selfcheck [--quick]
 
+inspect, compute and maps also take [--member N] [--step HOURS] [--units VAR=UNITS] [--plausibility ...]
+[--duplicates ...]; compute and maps [--below-ground mask|none].
+
 Every subcommand takes ``--config FILE``: a TOML file whose table named like the subcommand
 (``[compute]``, ``[maps]``, ...) and whose shared ``[defaults]`` table hold any of its options
 (keys spelled like the long option, ``-`` or ``_``; paths relative to the file's directory);
@@ -665,11 +668,9 @@ def _error_line(exc: BaseException) -> str:
         text = text.replace(library_words, option_words)
     text = re.sub(r"pass names=\{'(\w+)': '[^']*'\}(?: to open_dataset)?", r"pass --names \1=<name in the file>", text)
     text = text.replace("pass on_bad_file='skip'", "pass --skip-bad-files (compute)")
-    text = re.sub(r"units=\{'(\w+)': '([^']*)'\}", r"--units \1=\2", text)
-    text = re.sub(r"units=\{'(\w+)': \.\.\.\}", r"--units \1=UNITS", text)
-    text = text.replace("units={...}", "--units VAR=UNITS")
-    text = re.sub(r"plausibility='(\w+)'", r"--plausibility \1", text)
-    text = text.replace("duplicates='keep_first' (command line: the matching option)", "--duplicates keep-first")
+    text = re.sub(r"units=\{'(\w+)': '([^']*)'\}", r"\g<0> (command line: --units \1=\2)", text)
+    text = re.sub(r"units=\{'(\w+)': \.\.\.\}", r"\g<0> (command line: --units \1=UNITS)", text)
+    text = text.replace("units={...}", "units={...} (command line: --units VAR=UNITS)")
     return text
 
 

@@ -188,7 +188,7 @@ def check_plausible(ds: xr.Dataset, mode: str = "raise") -> list[str]:
     if problems and mode == "raise":
         raise UnitsError("implausible values for their units:\n  " + "\n  ".join(problems)
                          + "\n(if the values are right after all, pass plausibility='warn' to go on with a warning, "
-                         "or plausibility='off')")
+                         "or 'off'; command line: --plausibility warn or off)")
     for problem in problems:
         warnings.warn(f"implausible values for their units: {problem}", DataQualityWarning, stacklevel=3)
     return problems

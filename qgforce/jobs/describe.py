@@ -117,7 +117,7 @@ class InputDescription:
     levels_hpa : list of float
     times : list of str
     extra_dims : dict
-        Other dimensions and their sizes (not the member and step axes).
+        Other dimensions and their sizes (the member and step axes are described in ``realisation``).
     variables : list of (canonical, name in file, original units, SI units, note)
     dropped : list of str
     capabilities : list of (what, possible, reason)
@@ -169,6 +169,8 @@ class InputDescription:
             elif r.get(key) and values:
                 out.append(f"{what[:-1]}: {values[0]} ({r[key]})")
         for dim, size in self.extra_dims.items():
+            if dim in (r.get("member"), r.get("step")):  # shown above
+                continue
             out.append(f"other dimension: {dim} ({size})")
         out.append("variables (canonical <- name in file, units in file -> SI):")
         width = max((len(v[0]) for v in self.variables), default=10)
@@ -338,8 +340,7 @@ def describe_inputs(ds: xr.Dataset, files: Sequence[str] | None = None, *,
     times = [_time_text(t) for t in ds[tdim].values] if tdim else []
     realisation = _realisation(ds, tdim)
     extra = {str(d): int(n) for d, n in ds.sizes.items()
-             if d not in ("level", "latitude", "longitude", "y", "x", realisation["member"], realisation["step"])
-             and d != tdim}
+             if d not in ("level", "latitude", "longitude", "y", "x") and d != tdim}
     variables = []
     for name in ds.data_vars:
         a = ds[name].attrs
