@@ -157,6 +157,9 @@ def test_inspect_shows_members_steps_and_valid_times(forecast_file, capsys):
     assert "times: none" not in text
     assert "times: 2 valid time(s), one per forecast step: 2017-01-01 00:00, 2017-01-01 12:00" in text
     assert "forecast steps: 2 (step: 0 h, 12 h)" in text and "--step" in text
+    status, text, err = cli(capsys, "inspect", forecast_file, "--step", "12")  # the chosen step's valid time
+    assert status == 0, err
+    assert "times: 1 valid time(s): 2017-01-01 12:00" in text and "forecast step: 12 h (step)" in text
     status, text, err = cli(capsys, "inspect", NC, "--member", "1")  # a chosen member is described as such
     assert status == 0, err
     assert "ensemble member: 1 (number)" in text
@@ -411,3 +414,21 @@ def test_grib_output_records_the_dropped_messages(tmp_path, capsys):
     with xr.open_dataset(out) as got:
         assert "surface" in got.attrs["qgforce_dropped_grib_messages"]
         assert str(mixed) in got.attrs["source"]
+
+
+def test_reading_options_from_the_config(heights_file, tmp_path, capsys):
+    config = tmp_path / "job.toml"
+    config.write_text("[defaults]\nmember = 0\nunits = {geopotential = 'm'}\nplausibility = 'raise'\n"
+                      "[compute]\nfields = ['geopotential']\nbelow-ground = 'mask'\nduplicates = 'keep-first'\n")
+    out = tmp_path / "x.nc"
+    status, _, err = cli(capsys, "compute", heights_file, "--config", config, "-o", out, "--dtype", "float64")
+    assert status == 0, err
+    with xr.open_dataset(out) as got:
+        clean = qio.select_realisation(quiet_open(NC), member=0)
+        inner = dict(latitude=slice(1, -1))  # pole rows masked in the outputs
+        np.testing.assert_allclose(got["geopotential"].isel(inner).values, clean["geopotential"].isel(inner).values,
+                                   rtol=1e-12)
+        assert "units=geopotential=m" in got.attrs["history"] and "below-ground=mask" in got.attrs["history"]
+    config.write_text("[compute]\nunits = 5\n")
+    status, _, err = cli(capsys, "compute", heights_file, "--config", config, "-o", tmp_path / "y.nc")
+    assert_user_error(status, err, "config [compute] units", "VAR=UNITS")

@@ -296,6 +296,8 @@ def units_overrides(value) -> dict:
     """
     if isinstance(value, dict):
         pairs = list(value.items())
+    elif not isinstance(value, (str, list, tuple)):
+        raise OptionError(f"units overrides are VAR=UNITS pairs such as geopotential=m; got {value!r}")
     else:
         pairs = []
         for item in _as_list(",".join(value) if isinstance(value, (list, tuple)) else value):

@@ -158,7 +158,8 @@ class InputDescription:
         if self.times:
             out.append(f"times: {len(self.times)}: " + ", ".join(_few(self.times)))
         elif valid:
-            out.append(f"times: {len(valid)} valid time(s), one per forecast step: " + ", ".join(_few(valid)))
+            out.append(f"times: {len(valid)} valid time(s)" + (", one per forecast step: " if len(valid) > 1 else ": ")
+                       + ", ".join(_few(valid)))
         else:
             out.append("times: none (no time coordinate)")
         for key, what, option in (("member", "ensemble members", "--member"), ("step", "forecast steps", "--step")):
@@ -210,8 +211,10 @@ def _realisation(ds: xr.Dataset, tdim) -> dict:
         if axes[key]:
             out[f"{key}_values"] = [_axis_text(v) for v in np.atleast_1d(ds[axes[key]].values)]
     valid = axes["valid_time"]
-    if valid and valid != tdim and ds[valid].ndim >= 1 and not (tdim and ds[valid].dims == (tdim,)):
+    if valid and valid != tdim and not (tdim and ds[valid].dims == (tdim,)):
         out["valid_times"] = [_time_text(t) for t in np.unique(np.asarray(ds[valid].values).ravel())]
+    elif not tdim and "time" in ds.coords and ds["time"].ndim == 0:  # one time (e.g. a chosen step)
+        out["valid_times"] = [_time_text(ds["time"].values)]
     return out
 
 
