@@ -86,6 +86,7 @@ FIELD_STYLES = {
     "temperature_advection": FieldStyle(units="K h-1", scale=3600.0, interval=0.1, count=6, source_units="K s-1"),
     "vorticity_advection": FieldStyle(units="10-9 s-2", scale=1e9, interval=0.5, count=6, source_units="s-2"),
     "differential_vorticity_advection": _FORCING,
+    "layer_differential_vorticity_advection": _FORCING,
     "thermal_advection_term": _FORCING,
     "q_vector_forcing": _FORCING,
     "qn_forcing": _FORCING,

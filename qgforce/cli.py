@@ -14,6 +14,9 @@ Subcommands::
                       [--prefix P] [--output-dir DIR] [--dpi N] [--overwrite] [--names ...] [--quiet]
     qgforce selfcheck [--quick]
 
+inspect, compute and maps also take [--member N] [--step HOURS] [--units VAR=UNITS] [--plausibility ...]
+[--duplicates ...]; compute and maps [--below-ground mask|none].
+
 Every subcommand takes ``--config FILE``: a TOML file whose table named like the subcommand
 (``[compute]``, ``[maps]``, ...) and whose shared ``[defaults]`` table hold any of its options
 (keys spelled like the long option, ``-`` or ``_``; paths relative to the file's directory);
@@ -81,10 +84,13 @@ _OPTIONS = {o.dest: o for o in (
     _Option("smoothing", ("--smoothing",), "smoothing of the input fields before any derivative: "
             "gaussian:150km, five_point[:passes], nine_point[:passes] or none", "text", default="none",
             metavar="SPEC"),
-    _Option("coriolis", ("--coriolis",), "f0: one reference Coriolis parameter (textbook QG); local: f(latitude)",
-            "choice", default="f0", choices=("f0", "local")),
-    _Option("f0_latitude", ("--f0-latitude",), "reference latitude of f0 in degrees (default: mean latitude "
-            "of the grid, or of the region)", "float", metavar="DEG"),
+    _Option("coriolis", ("--coriolis",), "f0: one reference Coriolis parameter (textbook QG); local: f(latitude). "
+            "Default: f0 at the cos(latitude)-weighted mean latitude when the grid (or the region) lies in one "
+            "hemisphere and spans at most 60 degrees of latitude, the local f otherwise; omega on a grid reaching "
+            "into both hemispheres is solved per hemisphere, each with its own f0, NaN in the equatorial band",
+            "choice", choices=("f0", "local")),
+    _Option("f0_latitude", ("--f0-latitude",), "reference latitude of f0 in degrees (default: the cos(latitude)-"
+            "weighted mean latitude of the grid, of the region, or of each hemisphere)", "float", metavar="DEG"),
     _Option("omega", ("--omega",), "invert the QG omega equation (--no-omega: forcing terms only)", "bool",
             default=True),
     _Option("dtype", ("--dtype",), "stored type of the data (computation is float64)", "choice",
@@ -113,6 +119,22 @@ _OPTIONS = {o.dest: o for o in (
     _Option("points", ("--points",), "points along the section, both ends included", "int", default=120,
             metavar="N"),
     _Option("prefix", ("--prefix",), "start of the section file names", "text", default="section", metavar="P"),
+    _Option("member", ("--member",), "ensemble member to compute (a value of the file's member coordinate, "
+            "e.g. 0, the control in GRIB); required when the file holds several members, see 'inspect'",
+            "member", metavar="N"),
+    _Option("step", ("--step",), "forecast step to compute, in hours (6) or with a unit (6h, 90min); required "
+            "when the file holds several steps; the valid time becomes the time", "step", metavar="HOURS"),
+    _Option("units", ("--units",), "units of a mislabelled variable, replacing its units attribute, e.g. "
+            "geopotential=m for geopotential height labelled m2 s-2 (repeatable, or a comma list)", "units",
+            metavar="VAR=UNITS"),
+    _Option("plausibility", ("--plausibility",), "magnitude checks of the inputs against their units: raise "
+            "(stop), warn (go on with a warning) or off", "choice", default="raise",
+            choices=("raise", "warn", "off")),
+    _Option("duplicates", ("--duplicates",), "repeated times in the inputs: raise (stop, listing them) or "
+            "keep-first", "choice", default="raise", choices=("raise", "keep-first")),
+    _Option("below_ground", ("--below-ground",), "treatment of below-ground and missing points (NaN, or p above "
+            "the surface pressure) in the omega inversion: mask (forcing zero there, omega NaN there) or none "
+            "(stop at any NaN)", "choice", default="mask", choices=("mask", "none")),
     _Option("quick", ("--quick",), "two resolutions per case instead of three (faster)", "flag", default=False),
     _Option("quiet", ("-q", "--quiet"), "no progress bar, summary or cautions; only the line saying what was "
             "written (errors and warnings still shown)",
@@ -208,6 +230,13 @@ COMMANDS = {
     ),
 }
 
+# the options of real model output (ensemble members, forecast steps, mislabelled units, repeated times,
+# below-ground data), added to the subcommands that read model files
+_READING_OPTIONS = ("member", "step", "units", "plausibility", "duplicates")
+for _cmd, _extra in (("inspect", _READING_OPTIONS), ("compute", _READING_OPTIONS + ("below_ground",)),
+                     ("maps", _READING_OPTIONS + ("below_ground",))):
+    COMMANDS[_cmd] = (COMMANDS[_cmd][0], COMMANDS[_cmd][1], COMMANDS[_cmd][2] + _extra, *COMMANDS[_cmd][3:])
+
 
 class _Parser(argparse.ArgumentParser):
     """argparse without its exit: a usage error becomes one ``qgforce: error:`` line.
@@ -253,6 +282,9 @@ def build_parser() -> argparse.ArgumentParser:
                                  help=help_text)
             elif opt.kind == "flag":
                 cmd.add_argument(*opt.flags, dest=dest, action="store_true", default=None, help=help_text)
+            elif opt.kind == "units":  # repeatable
+                cmd.add_argument(*opt.flags, dest=dest, action="append", default=None, metavar=opt.metavar,
+                                 help=help_text)
             else:
                 metavar = opt.metavar or ("{" + ",".join(opt.choices) + "}" if opt.choices else None)
                 cmd.add_argument(*opt.flags, dest=dest, default=None, metavar=metavar, help=help_text)
@@ -400,6 +432,12 @@ def _convert(opt: _Option, value, where: str, base: Path | None):
         if not all(isinstance(k, str) and isinstance(v, str) for k, v in pairs):
             _fail(where, f"expected names as text, found {_shown(value)}")
         return dict(pairs)
+    if kind in ("member", "step", "units"):
+        from .jobs.choices import member_value, step_value, units_overrides
+
+        if isinstance(value, (bool, list, dict)) and kind != "units":
+            _fail(where, f"expected one value, found {value!r}")
+        return _shared({"member": member_value, "step": step_value, "units": units_overrides}[kind], value, where)
     if kind == "text":
         if not isinstance(value, str):
             _fail(where, f"expected text, found {_shown(value)}")
@@ -582,11 +620,27 @@ def _run_demo(opts: dict, argv: list) -> int:
     return 0
 
 
+def _open_inputs(opts: dict, paths: list, *, on_bad_file: str = "raise", realisation: bool = True):
+    """The normalised inputs with the reading options, one member and step chosen (``realisation``)."""
+    from .jobs.choices import choose_realisation
+    from .jobs.describe import open_inputs
+
+    ds = open_inputs(paths, names=opts.get("names"), on_bad_file=on_bad_file, units=opts.get("units"),
+                     plausibility=opts["plausibility"], duplicates=opts["duplicates"].replace("-", "_"))
+    if not realisation:
+        return ds
+    try:
+        return choose_realisation(ds, member=opts.get("member"), step=opts.get("step"))
+    except BaseException:
+        ds.close()
+        raise
+
+
 def _run_inspect(opts: dict, argv: list) -> int:
-    from .jobs.describe import describe_inputs, expand_sources, open_inputs
+    from .jobs.describe import describe_inputs, expand_sources
 
     paths = expand_sources(_need_files(opts, "inspect"))
-    ds = open_inputs(paths, names=opts.get("names"))
+    ds = _open_inputs(opts, paths, realisation=opts.get("member") is not None or opts.get("step") is not None)
     try:
         print(describe_inputs(ds, paths).text(), flush=True)
     finally:
@@ -601,6 +655,7 @@ def _compute_options(opts: dict) -> dict:
         "smoothing": None if opts["smoothing"] in ("", "none") else opts["smoothing"],
         "coriolis": opts["coriolis"],
         "f0_latitude": opts.get("f0_latitude"),
+        "below_ground": None if opts.get("below_ground") in (None, "none") else opts["below_ground"],
     }
 
 
@@ -619,7 +674,7 @@ def _parameters(opts: dict, keys) -> dict:
 def _run_compute(opts: dict, argv: list) -> int:
     from .jobs._common import CAUTION_TEXT
     from .jobs.compute import check_output_file, compute_to_netcdf
-    from .jobs.describe import expand_sources, open_inputs
+    from .jobs.describe import expand_sources
 
     start = time.perf_counter()
     if not opts.get("output"):
@@ -628,11 +683,11 @@ def _run_compute(opts: dict, argv: list) -> int:
     check_output_file(opts["output"], overwrite=bool(opts["overwrite"]), inputs=paths)
     from .stream import client_from
 
-    ds = open_inputs(paths, names=opts.get("names"), on_bad_file="skip" if opts.get("skip_bad_files") else "raise")
+    ds = _open_inputs(opts, paths, on_bad_file="skip" if opts.get("skip_bad_files") else "raise")
     try:
         parameters = {"files": " ".join(paths), **_parameters(opts, (
             "output", "fields", "levels", "times", "region", "form", "smoothing", "coriolis", "f0_latitude",
-            "omega", "dtype", "names"))}
+            "omega", "dtype", "names", "member", "step", "units", "plausibility", "duplicates", "below_ground"))}
         with client_from(opts.get("scheduler"), opts.get("workers")):
             path, results = compute_to_netcdf(
                 ds, opts["output"], overwrite=bool(opts["overwrite"]), dtype=opts["dtype"],
@@ -655,6 +710,8 @@ def _run_compute(opts: dict, argv: list) -> int:
             f"{results.attrs.get('qgforce_region', 'whole grid')}, omega form {results.attrs.get('qgforce_form')}",
             "  " + ", ".join(names),
         ]
+        if str(results.attrs.get("qgforce_frontogenesis_wind", "")).startswith("geostrophic ("):
+            lines.append(f"  frontogenesis wind: {results.attrs['qgforce_frontogenesis_wind']}")
         if results.attrs.get("qgforce_not_computed"):
             lines.append(f"  not computed: {results.attrs['qgforce_not_computed']}")
         lines += [CAUTION_TEXT, f"wall time: {time.perf_counter() - start:.1f} s"]
@@ -671,7 +728,7 @@ def _report_skipped(ds) -> None:
 
 def _run_maps(opts: dict, argv: list) -> int:
     from .jobs._common import CAUTION_TEXT
-    from .jobs.describe import expand_sources, open_inputs
+    from .jobs.describe import expand_sources
     from .jobs.maps import make_maps
 
     start = time.perf_counter()
@@ -679,7 +736,7 @@ def _run_maps(opts: dict, argv: list) -> int:
     from .jobs.runpage import records_from_files, write_run_page
 
     paths = expand_sources(_need_files(opts, "maps"))
-    ds = open_inputs(paths, names=opts.get("names"), on_bad_file="skip" if opts.get("skip_bad_files") else "raise")
+    ds = _open_inputs(opts, paths, on_bad_file="skip" if opts.get("skip_bad_files") else "raise")
     kept = []
     try:
         written = make_maps(
@@ -740,6 +797,9 @@ def _error_line(exc: BaseException) -> str:
         text = text.replace(library_words, option_words)
     text = re.sub(r"pass names=\{'(\w+)': '[^']*'\}(?: to open_dataset)?", r"pass --names \1=<name in the file>", text)
     text = text.replace("pass on_bad_file='skip'", "pass --skip-bad-files (compute)")
+    text = re.sub(r"units=\{'(\w+)': '([^']*)'\}", r"\g<0> (command line: --units \1=\2)", text)
+    text = re.sub(r"units=\{'(\w+)': \.\.\.\}", r"\g<0> (command line: --units \1=UNITS)", text)
+    text = text.replace("units={...}", "units={...} (command line: --units VAR=UNITS)")
     return _option_words(text)
 
 

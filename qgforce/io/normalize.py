@@ -413,7 +413,7 @@ def _drop_duplicate_times(ds: xr.Dataset, duplicates: str) -> xr.Dataset:
             raise InputDataError(
                 f"{len(repeated)} repeated value(s) of {dim!r}: {listing}; each map would overwrite the "
                 "other (overlapping files, or a file written twice?): remove the repeats, or pass "
-                "duplicates='keep_first' (command line: the matching option) to keep the first of each"
+                "duplicates='keep_first' (command line: --duplicates keep-first) to keep the first of each"
             )
         warnings.warn(
             f"kept the first of each repeated value of {dim!r} ({listing})", DataQualityWarning, stacklevel=4

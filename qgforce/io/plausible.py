@@ -186,7 +186,9 @@ def check_plausible(ds: xr.Dataset, mode: str = "raise") -> list[str]:
             problems += _temperature_problems(ds)
         problems += _wind_problems(ds)
     if problems and mode == "raise":
-        raise UnitsError("implausible values for their units:\n  " + "\n  ".join(problems))
+        raise UnitsError("implausible values for their units:\n  " + "\n  ".join(problems)
+                         + "\n(if the values are right after all, pass plausibility='warn' to go on with a warning, "
+                         "or 'off'; command line: --plausibility warn or off)")
     for problem in problems:
         warnings.warn(f"implausible values for their units: {problem}", DataQualityWarning, stacklevel=3)
     return problems

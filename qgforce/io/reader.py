@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
+import numpy as np
 import xarray as xr
 
 from ..errors import InputDataError
@@ -210,7 +211,28 @@ def open_dataset(
     return out
 
 
+def _repeated_time_dim(paths, engine) -> str | None:
+    """A date dimension whose values repeat across the files (overlapping files), or None.
+
+    Combining by coordinates would keep one of the repeated steps without a word; the caller
+    concatenates such files in the order given instead, so that the duplicates policy of
+    :func:`normalize` sees every repeat.
+    """
+    seen: dict = {}
+    for path in paths:
+        with _open_one(path, engine) as handle:  # lazy: the coordinates only are read
+            for dim in handle.dims:
+                if dim in handle.coords and np.issubdtype(handle[dim].dtype, np.datetime64):
+                    values = set(handle[dim].values.tolist())
+                    if values & seen.setdefault(dim, set()):
+                        return str(dim)
+                    seen[dim] |= values
+    return None
+
+
 def _open_many(paths, engine, chunks, combine_dim) -> xr.Dataset:
+    if combine_dim is None:
+        combine_dim = _repeated_time_dim(paths, engine)
     if combine_dim is None:
         combine = {"combine": "by_coords"}
     else:

@@ -123,7 +123,8 @@ def select_realisation(ds: xr.Dataset, member=None, step=None) -> xr.Dataset:
         Without the member and step dimensions (they stay as scalar coordinates).  When the
         valid time varies along a remaining dimension (``time``: the reference times), it
         becomes that dimension's coordinate, renamed ``time`` (the reference time is kept as
-        ``forecast_reference_time``); otherwise ``valid_time`` stays a coordinate beside it.
+        ``forecast_reference_time``); a scalar valid time (one reference time, one step) becomes
+        the scalar ``time`` in the same way; otherwise ``valid_time`` stays a coordinate beside it.
 
     Raises
     ------
@@ -150,4 +151,9 @@ def select_realisation(ds: xr.Dataset, member=None, step=None) -> xr.Dataset:
             out = out.rename_vars({"time": "forecast_reference_time"})
         if "time" not in out.variables:
             out = out.rename({valid: "time"})
+    elif valid is not None and out[valid].ndim == 0 and "time" in out.coords and out["time"].ndim == 0 \
+            and "time" not in out.dims and out[valid].values != out["time"].values:
+        # one reference time and one step: a scalar valid time; "time" is the reference time (GRIB layout)
+        out = out.rename_vars({"time": "forecast_reference_time"})
+        out = out.assign_coords(time=out[valid].variable)
     return out

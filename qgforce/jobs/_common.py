@@ -41,6 +41,6 @@ def _input_files(ds) -> list[str]:
 def _reason(exc: BaseException) -> str:
     """The first part of a library message: what is missing, without the how-to-name-it advice."""
     text = _one_line(str(exc))
-    for marker in ("; looked for", ". Open the file", "; pass names="):
+    for marker in ("; looked for", ". Open the file", "; pass names=", ". Supply more levels"):
         text = text.split(marker)[0]
     return text

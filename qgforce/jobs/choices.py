@@ -16,14 +16,19 @@ from .._units import HPA_BELOW, requested_pressure_pa
 from ..errors import InputDataError, OptionError
 from ._common import _as_list, _hpa, _stamp, _time_dim, _time_text
 
-__all__ = ["FORMS", "CORIOLIS", "select_times", "levels_pa", "region_box", "region_numbers", "pressures_hpa", "crop",
-           "check_choice"]
+__all__ = ["FORMS", "CORIOLIS", "BELOW_GROUND", "select_times", "levels_pa", "region_box", "region_numbers",
+           "pressures_hpa", "crop", "check_choice", "member_value", "step_value", "choose_realisation",
+           "units_overrides"]
 
 #: Omega forms accepted by the compute job (``"both"``: the Q-vector form first).
 FORMS = ("qvector", "traditional", "both")
 
-#: Coriolis choices of the jobs.
-CORIOLIS = ("f0", "local")
+#: Coriolis choices of the jobs: None (the library's rule, :func:`qgforce.kinematics.default_coriolis`),
+#: one reference value, or the local f.
+CORIOLIS = (None, "f0", "local")
+
+#: Treatments of below-ground and missing points by the inversion (``invert_omega(below_ground=)``).
+BELOW_GROUND = ("mask", None)
 
 
 def check_choice(option: str, value, allowed) -> str:
@@ -201,3 +206,105 @@ def region_box(ds: xr.Dataset, region) -> dict | None:
 
 def crop(ds: xr.Dataset, box: dict | None) -> xr.Dataset:
     return ds if box is None else ds.sel({d: slice(*v) for d, v in box.items()})
+
+
+def member_value(value):
+    """An ensemble member as given on the command line: a whole number (``0``: the control in GRIB),
+    else the text itself (member labels of some files).
+
+    Raises
+    ------
+    OptionError
+        An empty value or a number that is not whole.
+    """
+    text = str(value).strip()
+    if not text:
+        raise OptionError("a member is a value of the file's member coordinate, e.g. 0; got nothing")
+    try:
+        number = float(text)
+    except ValueError:
+        return text
+    if not np.isfinite(number) or number != int(number):
+        raise OptionError(f"a member number is a whole number, e.g. 0; got {value!r}")
+    return int(number)
+
+
+def step_value(value):
+    """A forecast step as given on the command line: hours (``6``, ``1.5``) or a duration with its
+    unit (``6h``, ``90min``, ``1 day``), as a number of hours (what
+    :func:`qgforce.io.select_realisation` takes for a step of any type).
+
+    Raises
+    ------
+    OptionError
+        Text that is neither a number of hours nor a duration, or a negative step.
+    """
+    import pandas as pd
+
+    text = str(value).strip()
+    try:
+        delta = pd.Timedelta(hours=float(text))
+    except ValueError:
+        try:
+            delta = pd.Timedelta(text)
+        except (ValueError, TypeError):
+            raise OptionError(f"a forecast step is a number of hours (6) or a duration with its unit (6h, "
+                              f"90min); got {value!r}") from None
+    if pd.isna(delta) or delta < pd.Timedelta(0):
+        raise OptionError(f"a forecast step is a finite duration, zero or positive; got {value!r}")
+    return delta.total_seconds() / 3600.0
+
+
+def choose_realisation(ds: xr.Dataset, member=None, step=None) -> xr.Dataset:
+    """One ensemble member and one forecast step of ``ds``, the valid time as its time coordinate.
+
+    :func:`qgforce.io.select_realisation` with the jobs' words: its errors carry the hints
+    ``member=`` -> ``--member``, ``step=`` -> ``--step`` for the command line.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A normalised dataset.
+    member, step : optional
+        See :func:`member_value`, :func:`step_value`.  Required when the data hold several
+        members (several steps): a job computes one realisation.
+
+    Raises
+    ------
+    InputDataError
+        Several members (steps) and none chosen, or a value not in the data; each lists the
+        values available.
+    """
+    from ..io import select_realisation
+
+    try:
+        return select_realisation(ds, member=member, step=step)
+    except InputDataError as exc:
+        exc.hints.update({"member=...": "--member N", "step=...": "--step HOURS", "member=": "--member ",
+                          "step=": "--step "})
+        raise
+
+
+def units_overrides(value) -> dict:
+    """``VAR=UNITS`` pairs (one string, comma-separated, or a sequence of them; or a mapping) as a
+    mapping for ``open_dataset(units=)``.
+
+    Raises
+    ------
+    OptionError
+        A pair without ``=`` or with an empty side.
+    """
+    if isinstance(value, dict):
+        pairs = list(value.items())
+    elif not isinstance(value, (str, list, tuple)):
+        raise OptionError(f"units overrides are VAR=UNITS pairs such as geopotential=m; got {value!r}")
+    else:
+        pairs = []
+        for item in _as_list(",".join(value) if isinstance(value, (list, tuple)) else value):
+            key, sep, text = str(item).partition("=")
+            pairs.append((key.strip(), text.strip()) if sep else (key.strip(), ""))
+    bad = [f"{k}={v}" if v else k for k, v in pairs if not (isinstance(k, str) and isinstance(v, str) and k and v)]
+    if bad or not pairs:
+        raise OptionError(f"units overrides are VAR=UNITS pairs such as geopotential=m or temperature=degC; got "
+                          f"{', '.join(map(repr, bad)) if bad else repr(value)}")
+    return dict(pairs)

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import re
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -15,21 +16,25 @@ from pathlib import Path
 import xarray as xr
 
 from .. import variables as V
-from ..errors import InputDataError, MissingVariableError, OptionError, QGForceError
+from ..errors import GridError, InputDataError, MissingVariableError, OmittedTermWarning, OptionError, QGForceError
 from ..output import cf
 from ..output.atomic import atomic_path
 from ..output.netcdf import write_results
 from ._common import CAUTION_TEXT, _as_list, _hpa, _input_files, _reason
-from .choices import CORIOLIS, FORMS, check_choice, crop, levels_pa, region_box, select_times
+from .choices import BELOW_GROUND, CORIOLIS, FORMS, check_choice, crop, levels_pa, region_box, select_times
 
 __all__ = ["LIFTING_FIELDS", "LIFTING_HORIZON_HOURS", "build_results", "check_output_file", "atomic_output",
-           "write_netcdf", "compute_to_netcdf", "NETCDF_COMPLEVEL"]
+           "write_netcdf", "compute_to_netcdf", "NETCDF_COMPLEVEL", "omitted_fields",
+           "FRONTOGENESIS_WITHOUT_WIND"]
 
 LIFTING_FIELDS = V.LIFTING_FIELDS
 
 #: zlib level of the compute job's files (the streaming job writes level 1 for speed).
 NETCDF_COMPLEVEL = 4
 
+
+#: The frontogenesis of a job whose input has no winds (``attrs["qgforce_frontogenesis_wind"]``).
+FRONTOGENESIS_WITHOUT_WIND = "geostrophic (the input has no u and v)"
 
 #: Horizon [h] of the column-lifting fields of :func:`build_results`.
 LIFTING_HORIZON_HOURS = 24.0
@@ -86,8 +91,9 @@ def build_results(
     form: str = "qvector",
     omega: bool = True,
     smoothing=None,
-    coriolis: str = "f0",
+    coriolis: str | None = None,
     f0_latitude: float | None = None,
+    below_ground: str | None = None,
 ) -> xr.Dataset:
     """The diagnostics of a job as one dataset (lazy on dask input), every choice checked first.
 
@@ -99,8 +105,14 @@ def build_results(
         Result names to keep (comma-separated string accepted).  ``"all"``: every forcing term
         of :func:`qgforce.forcing.forcing_terms` and every output of
         :func:`qgforce.omega.invert_omega` for ``form``, as far as the input variables allow (what
-        cannot be computed is listed in ``attrs["qgforce_not_computed"]``).  Names of either omega
+        cannot be computed is listed in ``attrs["qgforce_not_computed"]``).  Frontogenesis is by
+        the full wind, or by the geostrophic wind when the input has no ``u`` and ``v`` (then
+        ``attrs["qgforce_frontogenesis_wind"]`` is :data:`FRONTOGENESIS_WITHOUT_WIND`).  Names of either omega
         form may be asked for whatever ``form`` is (see the module docstring for the names).
+        With ``"all"``, what the data do not allow (the vertical terms and ω on fewer than 3
+        levels, frontogenesis without winds, ...) is left out with an
+        :class:`~qgforce.errors.OmittedTermWarning` naming the fields and the reason; an explicit
+        name that cannot be computed is an error saying why.
     optional_fields : sequence of str
         Names added when they can be computed and silently left out otherwise (for decorations
         such as geopotential contours on maps).
@@ -111,16 +123,21 @@ def build_results(
         See :func:`select_times`.
     region : (lat0, lat1, lon0, lon1), optional
         Degrees.  The forcing terms are computed on the whole grid and cut to the region; ω is
-        inverted on the region (ω = 0 on its edges: the region is the inversion domain).  With
-        ``coriolis="f0"`` and no ``f0_latitude``, the reference latitude is the area-weighted
-        mean latitude of the region, for the forcing and the inversion alike.
+        inverted on the region (ω = 0 on its edges: the region is the inversion domain).  The
+        Coriolis rule (``coriolis=None``) is applied to the region, and with f0 and no
+        ``f0_latitude`` the reference latitude is the cos φ-weighted mean latitude of the region,
+        for the forcing and the inversion alike.
     form : {"qvector", "traditional", "both"}
         Omega form whose outputs keep the plain names (``omega_total``, ...); ``"both"``: the
         Q-vector form, plus the traditional one with suffixed names.
     omega : bool
         Invert the omega equation (False: forcing terms only).
     smoothing, coriolis, f0_latitude
-        Passed to the library (see :func:`qgforce.forcing.forcing_terms`).
+        Passed to the library (see :func:`qgforce.forcing.forcing_terms`); ``coriolis=None`` is the
+        library's rule (:func:`qgforce.kinematics.default_coriolis`).
+    below_ground : {None, "mask"}
+        Passed to :func:`qgforce.omega.invert_omega`: refuse NaN in the inversion, or zero the
+        forcing at below-ground and missing points and report ω there as NaN.
 
     Returns
     -------
@@ -143,11 +160,12 @@ def build_results(
     """
     check_choice("form", form, FORMS)
     check_choice("coriolis", coriolis, CORIOLIS)
+    check_choice("below_ground", below_ground, BELOW_GROUND)
     wanted = _as_list(fields)
     every = not wanted or wanted == ["all"]
     if "all" in wanted and not every:
         raise OptionError("fields: 'all' cannot be combined with other names")
-    plan = _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitude)
+    plan = _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitude, below_ground)
     groups = _Groups(plan)
     groups.build("forcing")
     if omega:
@@ -166,6 +184,9 @@ def build_results(
         if name in plan.ds.coords:
             results[name].attrs = {**plan.ds[name].attrs, **results[name].attrs}
     results.attrs = _result_attrs(plan, groups, chosen, region, smoothing)
+    if every and groups.left_out():
+        warnings.warn("left out what these data do not allow (the other fields are computed): "
+                      + groups.left_out_text(), OmittedTermWarning, stacklevel=2)
     return results
 
 
@@ -183,16 +204,19 @@ class _Plan:
     coriolis: str
     primary_forms: list
     other_forms: list
+    below_ground: str | None = None
 
 
-def _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitude) -> _Plan:
-    """Select the times, check levels and region, and fix the reference latitude of a region."""
+def _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitude, below_ground) -> _Plan:
+    """Select the times, check levels and region, and fix the Coriolis choice of a region."""
     from ..grid import Grid
-    from ..kinematics import resolve_coriolis
+    from ..kinematics import default_coriolis, resolve_coriolis
 
     ds = select_times(ds, times)
     chosen_levels = levels_pa(ds, levels)
     box = region_box(ds, region)
+    if box is not None and coriolis is None:  # the library's rule, applied to the region (the inversion domain)
+        coriolis = default_coriolis(Grid.from_dataset(crop(ds, box)))
     if box is not None and coriolis == "f0" and f0_latitude is None:
         f0_latitude = resolve_coriolis(Grid.from_dataset(crop(ds, box)), "f0", None, warn=False).reference_latitude
     domain = None
@@ -202,7 +226,35 @@ def _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitu
     return _Plan(ds=ds, levels_pa=chosen_levels, box=box,
                  common=dict(coriolis=coriolis, f0_latitude=f0_latitude, smoothing=smoothing), domain=domain,
                  form=form, omega=omega, coriolis=coriolis, primary_forms=primary,
-                 other_forms=[f for f in ("qvector", "traditional") if f not in primary])
+                 other_forms=[f for f in ("qvector", "traditional") if f not in primary], below_ground=below_ground)
+
+
+def omitted_fields(text) -> dict:
+    """The fields named in a ``qgforce_omitted`` attribute (:func:`qgforce.forcing.forcing_terms`)
+    and why each was left out: ``{"beta_term": "their d/dp needs at least 3 pressure levels; ..."}``.
+
+    The attribute reads ``"name and name: reason; name: reason"`` (``"none"`` when nothing was left
+    out); a reason may itself hold ``"; "``, so a new entry starts only where field names and a colon
+    follow.
+    """
+    text = str(text or "").strip()
+    if not text or text == "none":
+        return {}
+    out = {}
+    for entry in re.split(r";\s+(?=[a-z_]+(?:(?:, | and )[a-z_]+)*:\s)", text):
+        names, _, reason = entry.partition(": ")
+        for name in re.split(r", | and ", names):
+            out[name.strip()] = reason.strip()
+    return out
+
+
+#: How :func:`build_results` names a group of results that could not be computed.
+_GROUP_LABELS = {
+    "forcing": "the forcing terms",
+    "qvector": "omega, Q-vector form (omega_total, omega_<term>, w_total)",
+    "traditional": "omega, traditional form (omega_total, omega_<term>, w_total)",
+    "lifting": "column lifting",
+}
 
 
 class _Groups:
@@ -213,7 +265,7 @@ class _Groups:
         self.done: dict[str, xr.Dataset] = {}
         self.failures: dict[str, QGForceError] = {}
         self.columns: dict[str, xr.DataArray] = {}
-        self.without_wind: list = []
+        self.omitted: dict[str, str] = {}  # forcing terms the levels do not allow -> why
 
     def build(self, group: str) -> None:
         if group in self.done or group in self.failures:
@@ -228,26 +280,45 @@ class _Groups:
             self.done[group] = out
         except MissingVariableError as exc:
             self.failures[group] = exc
+        except GridError as exc:  # the inversion on fewer than 3 levels: what the data allow, not a mistake
+            if group not in ("qvector", "traditional") or self.plan.ds.sizes.get("level", 1) >= 3:
+                raise
+            self.failures[group] = exc
+
+    def left_out(self) -> dict:
+        """What could not be computed -> why (field names or a group's label -> the reason)."""
+        out = {}
+        by_reason: dict[str, list] = {}
+        for name, reason in self.omitted.items():
+            by_reason.setdefault(reason, []).append(name)
+        for reason, names in by_reason.items():
+            out[", ".join(names)] = reason
+        for group, exc in self.failures.items():
+            out[_GROUP_LABELS.get(group, group)] = _reason(exc)
+        return out
+
+    def left_out_text(self) -> str:
+        return "; ".join(f"{what}: {why}" for what, why in self.left_out().items())
 
     def _forcing(self) -> xr.Dataset:
         from .. import forcing as F
 
         ds = self.plan.ds
         wind = "full" if {"u", "v"} <= set(ds.data_vars) else "geostrophic"
-        out = crop(F.forcing_terms(ds, frontogenesis_wind=wind, levels=self.plan.levels_pa, **self.plan.common),
-                   self.plan.box)
-        if wind == "geostrophic":  # frontogenesis is by the full wind: leave out what needs u and v
-            self.without_wind.extend(n for n in out.data_vars
-                                     if V.find(n) is not None and {"u", "v"} <= set(V.find(n).needs))
-            out = out.drop_vars(self.without_wind)
-            self.failures["frontogenesis"] = MissingVariableError(
-                "frontogenesis by the full wind needs u and v, which the input lacks")
+        with warnings.catch_warnings():  # reported once, with the rest of what is left out, by build_results
+            warnings.simplefilter("ignore", OmittedTermWarning)
+            terms = F.forcing_terms(ds, frontogenesis_wind=wind, levels=self.plan.levels_pa, **self.plan.common)
+        self.omitted = omitted_fields(terms.attrs.get("qgforce_omitted"))
+        out = crop(terms, self.plan.box)
+        if wind == "geostrophic":  # said in the variables' attrs and long_name, and in the global attrs
+            out.attrs["qgforce_frontogenesis_wind"] = FRONTOGENESIS_WITHOUT_WIND
         return out
 
     def _omega(self, form: str) -> xr.Dataset:
         from .. import omega as O
 
-        om = O.invert_omega(self.plan.ds, form=form, domain=self.plan.domain, **self.plan.common)
+        om = O.invert_omega(self.plan.ds, form=form, domain=self.plan.domain, below_ground=self.plan.below_ground,
+                            **self.plan.common)
         self.columns[form] = om["omega_total"]  # every level: the lifting fields need the whole column
         if self.plan.levels_pa is not None:
             om = om.sel(level=self.plan.levels_pa)
@@ -291,8 +362,13 @@ def _wanted_fields(groups: _Groups, wanted: list) -> list:
 def _explain_missing(groups: _Groups, name: str) -> None:
     failures = groups.failures
     row = V.find(name)
-    if name in groups.without_wind:
-        raise failures["frontogenesis"]
+    if name in groups.omitted:
+        raise InputDataError(f"field {name!r} cannot be computed from these data: {groups.omitted[name]}")
+    if name == "layer_differential_vorticity_advection" and "forcing" in groups.done:
+        n = groups.plan.ds.sizes.get("level", 1)
+        raise InputDataError(f"field {name!r} is the two-level form of the differential vorticity advection, "
+                             f"computed when the data have exactly 2 levels; these have {n}: ask for "
+                             "differential_vorticity_advection (its d/dp over all the levels) instead")
     if row is not None and row.group == "lifting" and "lifting" in failures:
         raise failures["lifting"]
     if row is not None and row.group in ("omega", "solver"):
@@ -325,15 +401,21 @@ def _result_attrs(plan: _Plan, groups: _Groups, chosen: list, region, smoothing)
     for key in ("qgforce_equator_mask_degrees", "qgforce_temperature_wind", "qgforce_frontogenesis_wind"):
         if key in forcing_attrs:
             attrs[key] = forcing_attrs[key]
-    for key in ("qgforce_sigma", "qgforce_boundary", "qgforce_fill", "qgforce_solver_request",
+    for key in ("qgforce_sigma", "qgforce_boundary", "qgforce_fill", "qgforce_below_ground", "qgforce_hemispheres",
+                "qgforce_solver_request",
                 "qgforce_solver_tolerance"):
         if key in omega_attrs and plan.omega:
             attrs[key] = omega_attrs[key]
-    if groups.failures:
-        attrs["qgforce_not_computed"] = "; ".join(f"{g}: {_reason(e)}" for g, e in groups.failures.items())
+    if groups.left_out():
+        attrs["qgforce_not_computed"] = groups.left_out_text()
+    if forcing_attrs.get("qgforce_coriolis_rule"):
+        attrs["qgforce_coriolis_rule"] = forcing_attrs["qgforce_coriolis_rule"]
     for key in ("title", "source", "history", "institution"):
         if key in ds.attrs:
             attrs[f"qgforce_input_{key}"] = str(ds.attrs[key])
+    for key in ("qgforce_skipped_files", "qgforce_dropped_grib_messages"):  # provenance of the inputs
+        if ds.attrs.get(key):
+            attrs[key] = str(ds.attrs[key])
     if "qgforce_input_files" in ds.attrs:
         attrs["qgforce_input_files"] = ds.attrs["qgforce_input_files"]
     return attrs
