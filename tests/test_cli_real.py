@@ -246,8 +246,9 @@ def test_maps_draw_the_layer_form(tmp_path, capsys):
                               "layer_differential_vorticity_advection,temperature_advection", "--no-summary",
                               "--projection", "plain", "--dpi", "40", "--output-dir", out)
     assert status == 0, err
-    assert {p.name for p in out.iterdir()} == {"layer_differential_vorticity_advection_20170101T1200.png",
-                                               "temperature_advection_850hPa_20170101T1200.png"}
+    assert {p.name for p in out.iterdir() if p.suffix == ".png"} == {
+        "layer_differential_vorticity_advection_20170101T1200.png", "temperature_advection_850hPa_20170101T1200.png"}
+    assert (out / "index.html").exists()  # the run page beside them
 
 
 # ---------------------------------------------------------------------------- units, plausibility, duplicates
