@@ -76,7 +76,7 @@ def _level_problems(ds) -> list[str]:
         return [f"pressure levels {_name(ds, 'level')!r} reach {p.max():g} Pa, above any atmospheric pressure "
                 f"({PRESSURE_MAX_PA:g} Pa): values in Pa labelled hPa? pass units={{'level': 'Pa'}}"]
     if p.max() < 0.011 * PRESSURE_MAX_PA:
-        return [f"pressure levels {_name(ds, 'level')!r} are all below {p.max():g} Pa (11 hPa), as if hPa "
+        return [f"pressure levels {_name(ds, 'level')!r} are all below 11 hPa (the highest is {p.max():g} Pa), as if hPa "
                 f"values were labelled Pa; if they are hPa, pass units={{'level': 'hPa'}}"]
     return []
 
