@@ -234,7 +234,8 @@ COMMANDS = {
 # below-ground data), added to the subcommands that read model files
 _READING_OPTIONS = ("member", "step", "units", "plausibility", "duplicates")
 for _cmd, _extra in (("inspect", _READING_OPTIONS), ("compute", _READING_OPTIONS + ("below_ground",)),
-                     ("maps", _READING_OPTIONS + ("below_ground",))):
+                     ("maps", _READING_OPTIONS + ("below_ground",)),
+                     ("section", _READING_OPTIONS + ("below_ground",))):
     COMMANDS[_cmd] = (COMMANDS[_cmd][0], COMMANDS[_cmd][1], COMMANDS[_cmd][2] + _extra, *COMMANDS[_cmd][3:])
 
 
@@ -762,7 +763,8 @@ def _run_section(opts: dict, argv: list) -> int:
     from .jobs.section import run_section
 
     _use_agg()
-    return run_section({**opts, "fields": None if opts.get("fields") == "all" else opts.get("fields")})
+    return run_section({**opts, "fields": None if opts.get("fields") == "all" else opts.get("fields"),
+                        "below_ground": None if opts.get("below_ground") in (None, "none") else opts["below_ground"]})
 
 
 def _run_selfcheck(opts: dict, argv: list) -> int:

@@ -84,7 +84,7 @@ def compute_record(
     forcing: bool = True,
     omega: bool = True,
     form: str = "qvector",
-    coriolis: str = "f0",
+    coriolis: str | None = None,
     f0_latitude: float | None = None,
     equator_mask: float | None = C.DEFAULT_EQUATOR_MASK_DEGREES,
     smoothing=None,
@@ -118,7 +118,9 @@ def compute_record(
         Right-hand side of the inversion.
     coriolis, f0_latitude, equator_mask, smoothing
         Shared by the forcing terms and the inversion (see :func:`qgforce.forcing.forcing_terms`).
-        A grid reaching the equator needs ``coriolis="local"`` or an explicit ``f0_latitude``.
+        ``coriolis=None`` (default) is the library's one rule (:func:`qgforce.kinematics.default_coriolis`:
+        f0 at the cos-latitude-weighted mean latitude on a one-hemisphere domain spanning at most 60°
+        of latitude, local f otherwise; grids reaching into both hemispheres inverted per hemisphere).
     forcing_options, omega_options : mapping, optional
         Further keyword arguments of :func:`~qgforce.forcing.forcing_terms` (e.g.
         ``temperature_wind``, ``levels``) and :func:`~qgforce.omega.invert_omega` (e.g.

@@ -433,3 +433,14 @@ def test_reading_options_from_the_config(heights_file, tmp_path, capsys):
     config.write_text("[compute]\nunits = 5\n")
     status, _, err = cli(capsys, "compute", heights_file, "--config", config, "-o", tmp_path / "y.nc")
     assert_user_error(status, err, "config [compute] units", "VAR=UNITS")
+
+
+def test_section_takes_a_member_and_draws_the_per_level_terms(tmp_path, capsys):
+    out = tmp_path / "sections"
+    status, stdout, err = cli(capsys, "section", NC, "--times", "2017-01-01T12", "--start", "30,-40", "--end",
+                              "70,10", "--fields", "temperature_advection", "--output-dir", out)
+    assert status == 2 and "--member" in err and not out.exists()  # several members: one must be chosen
+    status, stdout, err = cli(capsys, "section", NC, "--member", "0", "--times", "2017-01-01T12", "--start",
+                              "30,-40", "--end", "70,10", "--fields", "temperature_advection", "--output-dir", out)
+    assert status == 0, err
+    assert {p.name for p in out.iterdir()} == {"section_temperature_advection_20170101T1200.png"}

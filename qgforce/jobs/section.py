@@ -223,14 +223,15 @@ def draw_section(results: xr.Dataset, start, end, output_dir, *, inputs: xr.Data
     Notes
     -----
     Every choice and every file name is checked before anything is drawn; each file is written
-    atomically (a temporary file beside it, then moved over it).  Frontogenesis [K m-1 s-1] is
-    drawn in K (100 km)-1 (3 h)-1 (:func:`qgforce.forcing.to_display_units`).  The circulation
+    atomically (a temporary file beside it, then moved over it).  Each field is drawn in the
+    display unit of the maps (``qgforce._map_style.field_style``: temperature advection in K h-1,
+    frontogenesis in K (100 km)-1 (3 h)-1, ...).  The circulation
     arrows (:func:`qgforce.plot.cross_section`, ``circulation=``) need ``u`` and ``v`` in
     ``inputs``; their vertical part is −ω where ``omega_total`` is defined (ω is NaN outside the
     inversion domain) and is left out, as the arrow key says, when the results have no ω.
     """
     from .. import plot
-    from ..forcing import to_display_units
+    from .._map_style import field_style
     from ..sections import great_circle_points
     from ..thermo import potential_temperature
 
@@ -267,8 +268,9 @@ def draw_section(results: xr.Dataset, start, end, output_dir, *, inputs: xr.Data
     for i, t, name, path in jobs:
         step = results if i is None else results.isel({tdim: i})
         da = step[name].load()
-        if da.attrs.get("units") == "K m-1 s-1":
-            da = to_display_units(da)
+        style = field_style(name, da.attrs.get("units"))  # the maps' display unit (K h-1, K (100 km)-1 (3 h)-1, ...)
+        if style is not None and style.scale != 1.0:
+            da = (da * style.scale).assign_attrs({**da.attrs, "units": style.units})
         temperature = _at(inputs, "temperature", in_tdim, t)
         theta = None if temperature is None else potential_temperature(temperature.load())
         circulation, note = None, None
@@ -354,10 +356,11 @@ def add_section_arguments(parser: argparse.ArgumentParser) -> argparse.ArgumentP
 
 _DEFAULTS = {"files": [], "start": None, "end": None, "fields": None, "times": None, "points": 120,
              "prefix": "section", "output_dir": "qgforce_sections", "dpi": 100, "overwrite": False, "names": None,
-             "quiet": False}
+             "quiet": False, "member": None, "step": None, "units": None, "plausibility": "raise",
+             "duplicates": "raise"}
 
 #: Computing options passed on to :func:`qgforce.jobs.compute.build_results` when given.
-_COMPUTING = ("region", "form", "smoothing", "coriolis", "f0_latitude")
+_COMPUTING = ("region", "form", "smoothing", "coriolis", "f0_latitude", "below_ground")
 
 
 def run_section(opts) -> int:
@@ -368,8 +371,10 @@ def run_section(opts) -> int:
     opts : argparse.Namespace or Mapping
         The values of :func:`add_section_arguments` (missing or None values take the defaults;
         ``start``/``end`` may also be ``"LAT,LON"`` texts or pairs, as from a config file).
-        ``names`` (variable names of the file), ``quiet`` and the computing options ``region``,
-        ``form``, ``smoothing``, ``coriolis``, ``f0_latitude`` (as for
+        ``names`` (variable names of the file), ``quiet``, the reading options ``member``, ``step``
+        (:func:`qgforce.jobs.choices.choose_realisation`), ``units``, ``plausibility``, ``duplicates``
+        (:func:`qgforce.jobs.describe.open_inputs`) and the computing options ``region``, ``form``,
+        ``smoothing``, ``coriolis``, ``f0_latitude``, ``below_ground`` (as for
         :func:`qgforce.jobs.compute.build_results`) are used when present.
 
     Raises
@@ -378,6 +383,7 @@ def run_section(opts) -> int:
         Every user error (missing ``--start``/``--end`` or files, bad values, fields that cannot be
         computed, existing files): the command line reports it in one line and exits 2.
     """
+    from .choices import choose_realisation
     from .compute import build_results
     from .describe import expand_sources, open_inputs
 
@@ -393,8 +399,10 @@ def run_section(opts) -> int:
     fields = [o["fields"]] if isinstance(o["fields"], str) else o["fields"]
     paths = expand_sources(o["files"] if isinstance(o["files"], Sequence) and not isinstance(o["files"], str)
                            else [o["files"]])
-    ds = open_inputs(paths, names=o["names"])
+    ds = open_inputs(paths, names=o["names"], units=o["units"], plausibility=o["plausibility"],
+                     duplicates=str(o["duplicates"]).replace("-", "_"))
     try:
+        ds = choose_realisation(ds, member=o["member"], step=o["step"])  # one member and step, as compute
         # default: temperature advection (it needs only temperature and geopotential) and whichever
         # of the other section fields the input allows
         wanted = list(fields) if fields else ["temperature_advection"]
