@@ -47,7 +47,6 @@ from __future__ import annotations
 
 import functools
 import math
-import os
 import warnings
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -56,6 +55,7 @@ import numpy as np
 import xarray as xr
 
 from . import constants as C
+from ._workers import THREADS_ENV, default_workers
 from .errors import DataQualityWarning, GridError, InputDataError, MissingVariableError
 
 __all__ = [
@@ -453,34 +453,16 @@ def _warn_clipped(n_neg: int, n_sup: int, what: str = "specific humidity") -> No
 _BLOCK = 12000
 
 
-#: Environment variable that sets the threads of the in-memory column kernels (default: the
-#: cores this process may use, at most 8).
-THREADS_ENV = "QGFORCE_NUM_THREADS"
-
-
 def _block_threads() -> int:
-    """Threads for the blocks of one in-memory call: ``$QGFORCE_NUM_THREADS``, or the cores this
-    process may use, at most 8.
+    """Threads for the blocks of one in-memory call: the package's default thread count
+    (``$QGFORCE_NUM_THREADS``, or the cores this process may use, at most 8; see
+    :mod:`qgforce._workers`).
 
     The column loops run compiled without the GIL and numpy releases it in its loops, so blocks
     of columns run side by side (measured: about 1.6 times faster on 2 cores).  Dask input runs
     one block loop per chunk in dask's own threads instead (see :func:`_apply_columns`).
     """
-    value = os.environ.get(THREADS_ENV, "").strip()
-    if value:
-        try:
-            threads = int(value)
-        except ValueError:
-            threads = 0
-        if threads < 1:
-            raise InputDataError(f"{THREADS_ENV} must be a whole number of threads ≥ 1; found {value!r} "
-                                 f"(unset it to use every core)")
-        return threads
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except AttributeError:  # not on Linux
-        cores = os.cpu_count() or 1
-    return max(1, min(cores, 8))
+    return default_workers()
 
 
 def _by_blocks(fn, *arrays, block: int = _BLOCK, warn: bool = True, threads: int = 1):

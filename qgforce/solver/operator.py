@@ -19,12 +19,12 @@ Morse, P. M. and H. Feshbach, 1953: Methods of Theoretical Physics, McGraw-Hill,
 
 from __future__ import annotations
 
-import os
 from dataclasses import dataclass
 from functools import cached_property
 
 import numpy as np
 
+from .._workers import resolve_workers as _resolve_threads
 from ..errors import GridError, InputDataError
 
 __all__ = [
@@ -51,12 +51,15 @@ def _hpa(p) -> str:
 def resolve_workers(workers):
     """Normalise a ``workers`` argument as :mod:`scipy.fft` understands it.
 
+    The package's one thread convention (:func:`qgforce._workers.resolve_workers`), except
+    that ``None`` stays ``None`` here: scipy's default (one thread unless a
+    ``scipy.fft.set_workers`` context says otherwise).
+
     Parameters
     ----------
     workers : int or None
-        ``None``: scipy's default (one thread unless a ``scipy.fft.set_workers`` context
-        says otherwise).  A positive count: that many threads.  A negative count counts back
-        from :func:`os.cpu_count`: ``-1`` is every core, ``-2`` all but one.
+        ``None``: scipy's default.  A positive count: that many threads.  A negative count
+        counts back from :func:`os.cpu_count`: ``-1`` is every core, ``-2`` all but one.
 
     Returns
     -------
@@ -64,29 +67,12 @@ def resolve_workers(workers):
 
     Raises
     ------
-    ValueError
-        For ``0``, a count below ``-os.cpu_count()`` or a non-integer.
+    OptionError
+        (a ValueError) For ``0``, a count below ``-os.cpu_count()`` or a non-integer.
     """
     if workers is None:
         return None
-    if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)):
-        raise ValueError(f"workers must be an integer or None; found {workers!r}")
-    workers = int(workers)
-    ncpu = os.cpu_count() or 1
-    if workers == 0:
-        raise ValueError(
-            "workers=0 is not a thread count: pass a positive number of threads, a negative count "
-            f"back from the {ncpu} CPUs (-1 = all of them), or None for scipy's default"
-        )
-    if workers < 0:
-        resolved = ncpu + 1 + workers
-        if resolved < 1:
-            raise ValueError(
-                f"workers={workers} counts back past the {ncpu} CPUs of this machine; "
-                f"use a value between -{ncpu} and -1, a positive count, or None"
-            )
-        return resolved
-    return workers
+    return _resolve_threads(workers)
 
 
 def floor_sigma(sigma, minimum: float):
