@@ -53,7 +53,7 @@ import xarray as xr
 from . import constants as C
 from . import moist as M
 from ._units import parse_units, to_si
-from .errors import GridError, InputDataError, MissingVariableError, UnitsError
+from .errors import GridError, InputDataError, MissingVariableError, OptionError, UnitsError
 from .moist import LEVEL, PARCELS
 
 __all__ = [
@@ -62,6 +62,8 @@ __all__ = [
     "DEFAULT_CIN_THRESHOLD",
     "DEFAULT_HORIZON_HOURS",
     "TIME_INTERPOLATIONS",
+    "LOWEST_OMEGA",
+    "close_lowest_omega",
 ]
 
 #: CIN weaker than this [J kg-1] counts as "initiation potential" (common practice: inhibition of a
@@ -73,6 +75,13 @@ DEFAULT_HORIZON_HOURS = 24.0
 
 #: How ω varies between the times of a sequence: held over each step, or linear in time.
 TIME_INTERPOLATIONS = ("step", "linear")
+
+#: How ω is taken between the lowest valid level and the first interior level above it, when ω
+#: is exactly 0 at the lowest level (the boundary value of the QG inversion): ``"carried"`` (the
+#: first interior level's ω carried down), ``"as_given"`` (the 0 kept; the surface air then never
+#: rises) or ``"auto"`` (carried for the output of :func:`qgforce.omega.invert_omega`, recognised
+#: by its ``qgforce_terms`` attribute; as given otherwise).  See :func:`close_lowest_omega`.
+LOWEST_OMEGA = ("auto", "carried", "as_given")
 
 #: Sub-steps per interval of the "linear" interpolation (ω at the sub-step midpoints: a
 #: second-order approximation of the linearly varying flow).
@@ -119,6 +128,72 @@ def _make_flow(omega, step_hours, interpolation) -> _Flow:
     start.append(times[-1])
     end.append(np.inf)
     return _Flow([np.ascontiguousarray(s) for s in steps], np.array(start), np.array(end))
+
+
+def close_lowest_omega(omega, k0, k1, closure: str = "carried"):
+    r"""ω between the surface and the first interior level: replace the inversion's boundary zero.
+
+    The QG inversion (:func:`qgforce.omega.invert_omega`) imposes ω = 0 on the lowest data level,
+    a closure of the elliptic problem rather than a diagnosis of ω there.  Taken literally it
+    stalls the lifting: the air of the lowest level never rises, so a most-unstable parcel that
+    starts there is never lifted.  With ``closure="carried"`` the ω of the first interior level
+    (the lowest level where ω is diagnosed) is carried down to the lowest valid level of every
+    column where ω is exactly 0 there:
+
+    .. math::
+
+        \omega(p) = \omega_{k_0 + 1}, \qquad p_{k_0 + 1} \le p \le p_{k_0},
+
+    so the layer moves with the nearest diagnosed ascent (constant extrapolation, error
+    O(Δp ∂ω/∂p) over the lowest layer; the paths stay closed form since ω stays linear in p
+    between levels).  Over flat ground the true ω falls towards the surface (the kinematic lower
+    boundary condition; Holton and Hakim 2013, ch. 3, from memory), so this is an upper
+    bound of the lowest layer's ascent; the alternative, ω linear to zero at a surface pressure,
+    needs a surface pressure the isobaric input does not have.  A model's own ω is exactly zero
+    at a level almost never, so given ω is left alone in practice; ``closure="as_given"`` keeps
+    every value.
+
+    Parameters
+    ----------
+    omega : numpy.ndarray
+        ω [Pa s-1], (nz, N) or (nt, nz, N), levels surface first.
+    k0, k1 : numpy.ndarray of int
+        (N,) valid block of every column (levels k0 … k1 − 1).
+    closure : {"carried", "as_given"}
+        (``"auto"`` is resolved by the public functions before this is called.)
+
+    Returns
+    -------
+    numpy.ndarray
+        ``omega`` itself when nothing changes, otherwise a copy with the boundary zeros replaced.
+
+    Raises
+    ------
+    OptionError
+        For an unknown ``closure``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> om = np.array([[0.0], [-0.4], [-0.8]])
+    >>> close_lowest_omega(om, np.array([0]), np.array([3]))[:, 0]
+    array([-0.4, -0.4, -0.8])
+    """
+    if closure not in LOWEST_OMEGA[1:]:
+        raise OptionError(f"closure must be one of {LOWEST_OMEGA[1:]}; found {closure!r}")
+    if closure == "as_given":
+        return omega
+    cols = np.flatnonzero(np.asarray(k1) - np.asarray(k0) >= 2)
+    if cols.size == 0:
+        return omega
+    k = np.asarray(k0)[cols]
+    low, above = omega[..., k, cols], omega[..., k + 1, cols]
+    zero = (low == 0.0) & np.isfinite(above)
+    if not zero.any():
+        return omega
+    out = omega.copy()
+    out[..., k, cols] = np.where(zero, above, low)
+    return out
 
 
 def _advance(p, m, col, tau, om, plev, k0, k1, stop=None):
@@ -262,7 +337,7 @@ def _valid_flow(t, om):
 
 
 def _lift_kernel(t, q, om, *, levels, step_hours, interpolation, hours, mu_depth, moist_threshold, unlifted,
-                 threads=1):
+                 lowest_omega, threads=1):
     def block(tb, qb, ob):
         flow_ok = _valid_flow(tb, ob)
         out = {}
@@ -279,7 +354,7 @@ def _lift_kernel(t, q, om, *, levels, step_hours, interpolation, hours, mu_depth
             out.update({f"unlifted_{name}": diag[name] for name, _, _ in _CHANGES})
         else:
             prof = M._make_profile(levels, tb, qb, valid=flow_ok, copy=False)
-        flow = _make_flow(ob, step_hours, interpolation)
+        flow = _make_flow(close_lowest_omega(ob, prof.k0, prof.k1, lowest_omega), step_hours, interpolation)
         dur = np.full(prof.n, hours * C.SECONDS_PER_HOUR)
         new, pf, tf, qf, sat, crossed = _lifted_profile(prof, flow, dur)
         out.update(M._diagnose(new, mu_depth, moist_threshold))
@@ -355,10 +430,10 @@ def _search(f, cols, f0, horizon, tol, scan=(0.25, 0.5, 0.75), max_iter=40):
 
 
 def _hours_kernel(t, q, om, *, levels, step_hours, interpolation, horizon, parcel, threshold, tol, mu_depth,
-                  threads=1):
+                  lowest_omega, threads=1):
     def block(tb, qb, ob):
         prof = M._make_profile(levels, tb, qb, valid=_valid_flow(tb, ob), copy=False)
-        flow = _make_flow(ob, step_hours, interpolation)
+        flow = _make_flow(close_lowest_omega(ob, prof.k0, prof.k1, lowest_omega), step_hours, interpolation)
         n = prof.n
         has = prof.k0 < prof.k1
         kstart = prof.k0 if parcel == "surface_based" else M._most_unstable_level(prof, mu_depth)
@@ -456,7 +531,18 @@ def _omega_input(omega_or_w, t, q, time_dim):
     return om
 
 
-def _prepare(temperature, specific_humidity, omega_or_w, time_dim, interpolation, what):
+def _lowest_closure(choice, omega_or_w) -> str:
+    """Resolve ``lowest_omega`` (see :data:`LOWEST_OMEGA`) for this vertical velocity."""
+    if choice not in LOWEST_OMEGA:
+        raise OptionError(f"lowest_omega must be one of {LOWEST_OMEGA}; found {choice!r}")
+    if choice == "auto":
+        from_inversion = isinstance(omega_or_w, xr.DataArray) and "qgforce_terms" in omega_or_w.attrs
+        return "carried" if from_inversion else "as_given"
+    return choice
+
+
+def _prepare(temperature, specific_humidity, omega_or_w, time_dim, interpolation, what, lowest_omega):
+    lowest_omega = _lowest_closure(lowest_omega, omega_or_w)
     if interpolation not in TIME_INTERPOLATIONS:
         raise InputDataError(f"time_interpolation must be one of {TIME_INTERPOLATIONS}; found {interpolation!r}")
     t, q = M._thermo_inputs(temperature, specific_humidity, what)
@@ -471,7 +557,7 @@ def _prepare(temperature, specific_humidity, omega_or_w, time_dim, interpolation
         step_hours = _step_hours(om[time_dim])
         om = om.transpose(..., time_dim, LEVEL)
         core[2] = [time_dim, LEVEL]
-    return t, q, om, levels, step_hours, core
+    return t, q, om, levels, step_hours, core, lowest_omega
 
 
 _LIFT_EXTRA = (
@@ -504,6 +590,7 @@ def lift_columns(
     most_unstable_depth: float = M.DEFAULT_MOST_UNSTABLE_DEPTH,
     moist_threshold: float = M.DEFAULT_MOIST_THRESHOLD,
     reference: xr.Dataset | None = None,
+    lowest_omega: str = "auto",
 ) -> xr.Dataset:
     """Lift every column by a vertical velocity for ``hours`` and diagnose the lifted column.
 
@@ -534,6 +621,12 @@ def lift_columns(
         :func:`~qgforce.moist.column_diagnostics` of the same (unlifted) columns with the same
         options, when already computed (e.g. for the maps, or to lift for several durations);
         computed here otherwise.  The changes are taken against it.
+    lowest_omega : {"auto", "carried", "as_given"}
+        Where ω is exactly 0 at a column's lowest valid level (the boundary value of the QG
+        inversion), ``"carried"`` moves the lowest layer with the first interior level's ω;
+        ``"as_given"`` keeps the 0; ``"auto"`` (default) carries for the output of
+        :func:`qgforce.omega.invert_omega` (it has a ``qgforce_terms`` attribute) and keeps any
+        other ω as given.  See :func:`close_lowest_omega`.
 
     Returns
     -------
@@ -582,8 +675,8 @@ def lift_columns(
     """
     if not np.isfinite(hours) or hours < 0:
         raise InputDataError(f"the duration must be a finite number of hours ≥ 0; found {hours}")
-    t, q, om, levels, step_hours, core = _prepare(temperature, specific_humidity, omega_or_w, time_dim,
-                                                  time_interpolation, "lift_columns")
+    t, q, om, levels, step_hours, core, lowest_omega = _prepare(
+        temperature, specific_humidity, omega_or_w, time_dim, time_interpolation, "lift_columns", lowest_omega)
     outputs = M._COLUMN_OUTPUTS + _LIFT_EXTRA
     if reference is None:  # the unlifted diagnostics in the same pass over the columns
         by_name = {o.name: o for o in M._COLUMN_OUTPUTS}
@@ -592,7 +685,7 @@ def lift_columns(
         _lift_kernel, [t, q, om], core, outputs,
         kwargs={"levels": levels, "step_hours": step_hours, "interpolation": time_interpolation, "hours": float(hours),
                 "mu_depth": float(most_unstable_depth), "moist_threshold": float(moist_threshold),
-                "unlifted": reference is None},
+                "unlifted": reference is None, "lowest_omega": lowest_omega},
     )
     if reference is None:  # same kernel, same coordinates: no alignment needed
         names = [f"unlifted_{name}" for name, _, _ in _CHANGES]
@@ -615,6 +708,7 @@ def lift_columns(
         "qgforce_duration_hours": float(hours),
         "qgforce_time_dim": str(time_dim),
         "qgforce_time_interpolation": time_interpolation if time_dim else "steady",
+        "qgforce_lowest_omega": lowest_omega,
         "comment": _CAUTION,
     }
     return ds
@@ -644,12 +738,13 @@ def hours_to_initiation(
     time_interpolation: str = "step",
     tolerance_hours: float = 0.1,
     most_unstable_depth: float = M.DEFAULT_MOST_UNSTABLE_DEPTH,
+    lowest_omega: str = "auto",
 ) -> xr.Dataset:
     """Hours of the diagnosed ascent until a low-level parcel saturates, and until it could start convection.
 
     Parameters
     ----------
-    temperature, specific_humidity, omega_or_w, time_dim, time_interpolation
+    temperature, specific_humidity, omega_or_w, time_dim, time_interpolation, lowest_omega
         As in :func:`lift_columns`.
     horizon_hours : float
         Longest duration searched [h] (24).
@@ -691,9 +786,11 @@ def hours_to_initiation(
     duration at which the condition holds).  A crossing within a quarter of the horizon that is
     undone before the next scan point would be missed.
 
-    The tracked parcel is Lagrangian: the same air throughout.  With ω = 0 at the lowest level
-    (the boundary condition of the QG inversion) surface air does not rise, and its CIN falls only
-    through the lifting and cooling of the air above it.
+    The tracked parcel is Lagrangian: the same air throughout.  The QG inversion's ω is 0 at the
+    lowest level (its boundary condition); by default (``lowest_omega="auto"``) the first
+    interior level's ω is carried down to it (:func:`close_lowest_omega`), so air that starts at
+    the lowest level rises with the nearest diagnosed ascent.  With ``"as_given"`` that air does
+    not rise, and its CIN falls only through the lifting and cooling of the air above it.
 
     This is a kinematic estimate of the large-scale contribution: mesoscale boundaries, diabatic
     effects and surface heating are not in it.
@@ -706,13 +803,14 @@ def hours_to_initiation(
         raise InputDataError(f"cin_threshold is a positive magnitude [J kg-1]; found {cin_threshold}")
     if not tolerance_hours > 0:
         raise InputDataError(f"tolerance_hours must be positive; found {tolerance_hours}")
-    t, q, om, levels, step_hours, core = _prepare(temperature, specific_humidity, omega_or_w, time_dim,
-                                                  time_interpolation, "hours_to_initiation")
+    t, q, om, levels, step_hours, core, lowest_omega = _prepare(
+        temperature, specific_humidity, omega_or_w, time_dim, time_interpolation, "hours_to_initiation",
+        lowest_omega)
     ds = M._apply_columns(
         _hours_kernel, [t, q, om], core, _HOURS_OUTPUTS,
         kwargs={"levels": levels, "step_hours": step_hours, "interpolation": time_interpolation,
                 "horizon": float(horizon_hours), "parcel": parcel, "threshold": float(cin_threshold),
-                "tol": float(tolerance_hours), "mu_depth": float(most_unstable_depth)},
+                "tol": float(tolerance_hours), "mu_depth": float(most_unstable_depth), "lowest_omega": lowest_omega},
     )
     ds.attrs = {
         "qgforce_parcel": parcel,
@@ -721,6 +819,7 @@ def hours_to_initiation(
         "qgforce_tolerance_hours": float(tolerance_hours),
         "qgforce_time_dim": str(time_dim),
         "qgforce_time_interpolation": time_interpolation if time_dim else "steady",
+        "qgforce_lowest_omega": lowest_omega,
         "comment": _CAUTION,
     }
     return ds

@@ -253,10 +253,16 @@ def test_with_the_inverted_qg_omega_of_the_demo():
         om = invert_omega(ds)["omega_total"]
     lifted = A.lift_columns(ds.isel(time=0), None, om.isel(time=0), 6.0).compute()
     assert int(lifted.crossed_parcels.max()) == 0
-    hours = A.hours_to_initiation(ds.isel(time=0), None, om, 12.0, time_dim="time").compute()
-    # the QG inversion has ω = 0 on the lowest level: surface air is not lifted (documented)
+    hours = A.hours_to_initiation(ds.isel(time=0), None, om, 12.0, time_dim="time",
+                                  lowest_omega="as_given").compute()
+    # the QG inversion has ω = 0 on the lowest level: taken as given, surface air is not lifted
     assert bool(hours.hours_to_saturation.isnull().all())
     assert hours.hours_to_initiation.dims == ("latitude", "longitude")
+    # by default ("auto": the inversion's output is recognised) the first interior level's ω is
+    # carried down, so surface air rises where ω < 0 there and some of it saturates
+    carried = A.hours_to_initiation(ds.isel(time=0), None, om, 12.0, time_dim="time").compute()
+    assert carried.attrs["qgforce_lowest_omega"] == "carried"
+    assert int(carried.hours_to_saturation.notnull().sum()) > 0
 
 
 # ------------------------------------------------------------------------------- bad input

@@ -1,0 +1,70 @@
+"""Lifting does not stall on the QG inversion's boundary zero at the lowest level.
+
+Reference for the path check: scipy.integrate.solve_ivp on dp/dt = omega(p) with omega linear in
+p between the levels (the flow the module documents), the lowest layer moving with the first
+interior level's omega (the documented "carried" closure).
+"""
+
+import numpy as np
+import pytest
+import xarray as xr
+from scipy.integrate import solve_ivp
+
+import qgforce.ascent as A
+from qgforce.errors import OptionError
+
+
+def _column():
+    p = np.linspace(100000.0, 20000.0, 17)
+    t = 300.0 - 6.5e-3 * 29.3 * 300.0 * np.log(1e5 / p) / 1.0  # a simple, stable enough profile
+    t = np.maximum(t, 215.0)
+    q = np.where(p > 70000.0, 0.008, 0.001) * (p / 1e5) ** 2
+    om = -0.6 * np.sin(np.pi * (1e5 - p) / (1e5 - p[-1]))
+    om[0] = 0.0  # the inversion's boundary value
+    mk = lambda v, **a: xr.DataArray(v, dims=("level",), coords={"level": p}, attrs=a)  # noqa: E731
+    return p, mk(t, units="K"), mk(q, units="kg kg-1"), om, mk
+
+
+def test_close_lowest_omega_carries_only_exact_zeros():
+    om = np.array([[0.0, 0.0, -0.1, 0.0], [-0.4, np.nan, -0.3, -0.2], [-0.8, -0.5, -0.6, -0.1]])
+    k0 = np.array([0, 0, 0, 1])
+    k1 = np.array([3, 3, 3, 3])
+    out = A.close_lowest_omega(om, k0, k1)
+    np.testing.assert_array_equal(out[:, 0], [-0.4, -0.4, -0.8])  # carried
+    np.testing.assert_array_equal(out[:, 1], om[:, 1])  # nothing above to carry
+    np.testing.assert_array_equal(out[:, 2], om[:, 2])  # a given nonzero value is kept
+    np.testing.assert_array_equal(out[:, 3], om[:, 3])  # lowest valid level is 1, ω there nonzero
+    assert A.close_lowest_omega(om, k0, k1, "as_given") is om
+    seq = np.stack([om, 2 * om])  # (nt, nz, N): every step closed
+    np.testing.assert_array_equal(A.close_lowest_omega(seq, k0, k1)[1, :, 0], [-0.8, -0.8, -1.6])
+    with pytest.raises(OptionError, match="closure must be one of"):
+        A.close_lowest_omega(om, k0, k1, "linear")
+
+
+def test_lowest_parcel_follows_the_carried_flow():
+    p, t, q, om, mk = _column()
+    omega = mk(om, units="Pa s-1", qgforce_terms="q_vector_forcing")  # as invert_omega marks it
+    hours = 3.0
+    got = A.lift_columns(t, q, omega, hours)
+    stalled = A.lift_columns(t, q, omega, hours, lowest_omega="as_given")
+    assert float(stalled.displaced_pressure[0]) == pytest.approx(1000.0)
+    carried = om.copy()
+    carried[0] = om[1]
+
+    def rhs(_, y):
+        return [np.interp(y[0], p[::-1], carried[::-1])]
+
+    ref = solve_ivp(rhs, (0.0, hours * 3600.0), [p[0]], rtol=1e-11, atol=1e-6).y[0, -1]
+    assert float(got.displaced_pressure[0]) * 100.0 == pytest.approx(ref, rel=1e-8)
+    assert float(got.displaced_pressure[0]) < 1000.0 - 10.0
+    # a plain ω (not the inversion's) is taken as given by default; the explicit choice carries it
+    plain = A.lift_columns(t, q, mk(om, units="Pa s-1"), hours)
+    assert float(plain.displaced_pressure[0]) == pytest.approx(1000.0)
+    forced = A.lift_columns(t, q, mk(om, units="Pa s-1"), hours, lowest_omega="carried")
+    assert float(forced.displaced_pressure[0]) == pytest.approx(float(got.displaced_pressure[0]), rel=1e-12)
+
+
+def test_bad_choice_is_an_option_error():
+    p, t, q, om, mk = _column()
+    with pytest.raises(OptionError, match="lowest_omega must be one of"):
+        A.hours_to_initiation(t, q, mk(om, units="Pa s-1"), lowest_omega="surface")
