@@ -136,22 +136,25 @@ def close_lowest_omega(omega, k0, k1, closure: str = "carried"):
     The QG inversion (:func:`qgforce.omega.invert_omega`) imposes ω = 0 on the lowest data level,
     a closure of the elliptic problem rather than a diagnosis of ω there.  Taken literally it
     stalls the lifting: the air of the lowest level never rises, so a most-unstable parcel that
-    starts there is never lifted.  With ``closure="carried"`` the ω of the first interior level
-    (the lowest level where ω is diagnosed) is carried down to the lowest valid level of every
-    column where ω is exactly 0 there:
+    starts there is never lifted.  With ``closure="carried"`` the ascent of the first interior
+    level (the lowest level where ω is diagnosed) is carried down to the lowest valid level of
+    every column where ω is exactly 0 there and the first interior level rises:
 
     .. math::
 
-        \omega(p) = \omega_{k_0 + 1}, \qquad p_{k_0 + 1} \le p \le p_{k_0},
+        \omega(p) = \omega_{k_0 + 1} \ \text{if} \ \omega_{k_0 + 1} < 0, \qquad
+        p_{k_0 + 1} \le p \le p_{k_0},
 
     so the layer moves with the nearest diagnosed ascent (constant extrapolation, error
     O(Δp ∂ω/∂p) over the lowest layer; the paths stay closed form since ω stays linear in p
     between levels).  Over flat ground the true ω falls towards the surface (the kinematic lower
     boundary condition; Holton and Hakim 2013, ch. 3, from memory), so this is an upper
     bound of the lowest layer's ascent; the alternative, ω linear to zero at a surface pressure,
-    needs a surface pressure the isobaric input does not have.  A model's own ω is exactly zero
-    at a level almost never, so given ω is left alone in practice; ``closure="as_given"`` keeps
-    every value.
+    needs a surface pressure the isobaric input does not have.  Descent is not carried: air
+    sinking through the lowest data level would leave the column where there are no data to
+    follow it, so there the boundary 0 stays (subsiding air slows to rest at the lowest level,
+    as it does towards flat ground).  A model's own ω is exactly zero at a level almost never,
+    so given ω is left alone in practice; ``closure="as_given"`` keeps every value.
 
     Parameters
     ----------
@@ -188,7 +191,7 @@ def close_lowest_omega(omega, k0, k1, closure: str = "carried"):
         return omega
     k = np.asarray(k0)[cols]
     low, above = omega[..., k, cols], omega[..., k + 1, cols]
-    zero = (low == 0.0) & np.isfinite(above)
+    zero = (low == 0.0) & (above < 0.0)  # NaN above compares False: nothing to carry
     if not zero.any():
         return omega
     out = omega.copy()

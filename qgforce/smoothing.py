@@ -637,6 +637,8 @@ shuman_box.__doc__ = (
     1 − w for the 4Δ wave.  At w = 1/2 the stencil is the outer product of two 1-2-1 filters,
     (1/16)[[1, 2, 1], [2, 4, 2], [1, 2, 1]], with R = cos²(kΔ/2) cos²(lΔ/2): the 2Δ wave along
     either axis is removed, the 4Δ wave halved.  |R| ≤ 1 for w ≤ 1; R ≥ 0 for w ≤ 1/2.
+    Each factor is Shuman's (1957) response of his three-point element to a wave of
+    wavelength L, 1 − 2w sin²(πΔ/L) (kΔ = 2πΔ/L).
 """
     + _POINT_EDGES
     + """

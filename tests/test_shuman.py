@@ -59,6 +59,23 @@ def test_cross_response_along_one_axis_is_shuman_element_of_half_the_element(m):
     np.testing.assert_allclose(out[1:-1, 1:-1], _shuman_response(0.3, m) * f[1:-1, 1:-1], rtol=0, atol=1e-13)
 
 
+@pytest.mark.parametrize("mx,my", [(4, 6), (3, 8), (2, 5)])
+def test_two_dimensional_response(mx, my):
+    # an oblique wave: the box smoother multiplies it by the product of Shuman's element along
+    # each axis (nu = w); the cross smoother by the sum of the two half-element (nu = w/2)
+    # responses less one (both from the sympy-derived 1-D response above)
+    w = 0.5
+    j, i = np.meshgrid(np.arange(LAT.size), np.arange(LON.size), indexing="ij")
+    f = np.cos(2 * np.pi * i / mx + 2 * np.pi * j / my)
+    box = S.shuman_box(_da(f), element=w).values
+    cross = S.shuman_cross(_da(f), element=w).values
+    r_box = _shuman_response(w, mx) * _shuman_response(w, my)
+    r_cross = _shuman_response(w / 2, mx) + _shuman_response(w / 2, my) - 1.0
+    inner = (slice(1, -1), slice(1, -1))
+    np.testing.assert_allclose(box[inner], r_box * f[inner], rtol=0, atol=1e-13)
+    np.testing.assert_allclose(cross[inner], r_cross * f[inner], rtol=0, atol=1e-13)
+
+
 def test_old_names_warn_and_equal_the_new():
     f = _da(np.random.default_rng(4).normal(size=(LAT.size, LON.size)))
     for old, new in ((S.five_point, S.shuman_cross), (S.nine_point, S.shuman_box)):
