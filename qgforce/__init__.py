@@ -66,7 +66,7 @@ from .ascent import hours_to_initiation, lift_columns
 from .moist import column_diagnostics, equivalent_potential_temperature, lifting_condensation_level, saturation_vapour_pressure
 from .omega import invert_omega, lift_over_time, select_domain
 from .selfcheck import run_selfcheck
-from .smoothing import five_point, gaussian, nine_point, smooth
+from .smoothing import five_point, gaussian, nine_point, shuman_box, shuman_cross, smooth
 from .thermo import (
     density,
     mean_static_stability,
@@ -121,6 +121,8 @@ __all__ = [
     # smoothing
     "smooth",
     "gaussian",
+    "shuman_cross",
+    "shuman_box",
     "five_point",
     "nine_point",
     # QG forcing terms

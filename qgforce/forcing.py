@@ -613,7 +613,7 @@ def _prepare(ds, *, what, needs, why, vertical=False, geostrophic=True, coriolis
         from .smoothing import smooth
 
         for n in list(fields):
-            fields[n], description = smooth(fields[n], smoothing, grid=grid)
+            fields[n], description = smooth(fields[n], smoothing, grid=grid, describe=True)
     if geostrophic:
         cor = resolve_coriolis(grid, coriolis, f0_latitude, equator_mask, warn=False)
     else:  # full-wind diagnostics use no Coriolis parameter: validate the option, resolve nothing that can fail

@@ -10,9 +10,12 @@ handled here by one dispatcher, :func:`smooth`.  Three filters are offered:
     the poles, so the kernel spans more grid points there; on projected grids the true spacing
     (grid spacing / map factor) is used.  Missing values (NaN) are handled by normalised
     convolution and never spread beyond the filter's reach.
-:func:`five_point`, :func:`nine_point`
-    The classic grid-point smoothers, defined in grid-index space (their response depends on
-    wavelengths measured in grid lengths, not on the metric).
+:func:`shuman_cross`, :func:`shuman_box`
+    The grid-point smoothers of Shuman (1957): the five-point (cross) and nine-point (box)
+    forms of his three-point smoothing element, defined in grid-index space (their response
+    depends on wavelengths measured in grid lengths, not on the metric).  ``five_point`` and
+    ``nine_point``, their former names, remain for one release as deprecated aliases (with
+    their former keywords ``passes`` and ``weight``).
 
 Every filter returns a DataArray with the name, coordinates and attributes of its input plus
 ``attrs["qgforce_smoothing"]``, a one-line description of what was done.  All of them are
@@ -20,6 +23,9 @@ lazy on dask input (one task per chunk; the horizontal extent is kept whole in a
 
 References
 ----------
+Shuman, F. G., 1957: Numerical methods in weather prediction: II. Smoothing and filtering.
+*Mon. Wea. Rev.*, 85, 357–361 (citation from memory).
+
 Shapiro, R., 1970: Smoothing, filtering, and boundary effects. *Rev. Geophys. Space Phys.*,
 8, 359–387.
 
@@ -38,6 +44,7 @@ from __future__ import annotations
 import hashlib
 import numbers
 import re
+import warnings
 from collections import OrderedDict
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -50,28 +57,35 @@ from scipy import sparse
 from scipy.ndimage import correlate1d
 
 from .calculus import apply_horizontal
-from .errors import GridError, InputDataError
+from .errors import GridError, InputDataError, OptionError
 from .grid import Grid
 from ._smoothing_check import check_smoothing
 
-__all__ = ["METHODS", "gaussian", "five_point", "nine_point", "smooth"]
+__all__ = ["METHODS", "gaussian", "shuman_cross", "shuman_box", "five_point", "nine_point", "smooth"]
 
-#: Names accepted by :func:`smooth` as ``method``.
-METHODS = ("gaussian", "five_point", "nine_point")
+#: Names accepted by :func:`smooth` as ``method`` (the last two: former names, kept for one release).
+METHODS = ("gaussian", "shuman_cross", "shuman_box", "five_point", "nine_point")
+
+#: Each grid-point smoother: (stencil has corners, name of the repeat count, name of the element).
+_POINT_NAMES = {
+    "shuman_cross": (False, "repeat", "element"),
+    "shuman_box": (True, "repeat", "element"),
+    "five_point": (False, "passes", "weight"),
+    "nine_point": (True, "passes", "weight"),
+}
 
 _ATTR = "qgforce_smoothing"
 
 _FORMS = (
     "accepted forms: None (no smoothing); the strings 'gaussian:<sigma>km' or 'gaussian:<sigma>' "
-    "(sigma in km), 'five_point', 'five_point:<passes>', 'nine_point', 'nine_point:<passes>'; "
+    "(sigma in km), 'shuman_cross', 'shuman_cross:<repeat>', 'shuman_box', 'shuman_box:<repeat>' "
+    "(formerly 'five_point:<passes>', 'nine_point:<passes>', still accepted); "
     "or a mapping such as {'method': 'gaussian', 'length_km': 150, 'truncate': 3.0, 'min_weight': 0.5} "
-    "or {'method': 'nine_point', 'passes': 3, 'weight': 0.5}"
+    "or {'method': 'shuman_box', 'repeat': 3, 'element': 0.5}"
 )
 
-_KEYS = {
-    "gaussian": ("length_km", "truncate", "min_weight"),
-    "five_point": ("passes", "weight"),
-    "nine_point": ("passes", "weight"),
+_KEYS = {"gaussian": ("length_km", "truncate", "min_weight")} | {
+    name: (repeat, element) for name, (_, repeat, element) in _POINT_NAMES.items()
 }
 
 # relative slack on distance comparisons, so that a point lying exactly at truncate·σ is kept
@@ -91,19 +105,25 @@ def _number(value, name: str, high: float = np.inf) -> float:
     return v
 
 
-def _passes(value) -> int:
+def _passes(value, name: str = "passes") -> int:
     if isinstance(value, bool) or not isinstance(value, numbers.Integral) or int(value) < 1:
-        raise InputDataError(f"passes must be a positive integer (1, 2, ...); found {value!r}")
+        raise InputDataError(f"{name} must be a positive integer (1, 2, ...); found {value!r}")
     return int(value)
 
 
-def _check_values(method: str, kwargs: dict) -> None:
-    """The range checks of the filters' arguments, before the grid checks use them."""
+def _check_values(method: str, kwargs: dict) -> tuple:
+    """The range checks of the filters' arguments, before the grid checks use them.
+
+    Returns the (method, arguments) the grid check reads: a point smoother as ``five_point`` or
+    ``nine_point`` with ``passes`` and ``weight``, whichever of its names was given.
+    """
     if method == "gaussian":
         _number(kwargs["length_km"], "length_km (the standard deviation sigma of the Gaussian, in km)")
-    else:
-        _passes(kwargs.get("passes", 1))
-        _number(kwargs.get("weight", 0.5), "weight (the smoothing element)", high=1.0)
+        return method, kwargs
+    corners, repeat, element = _POINT_NAMES[method]
+    passes = _passes(kwargs.get(repeat, 1), repeat)
+    weight = _number(kwargs.get(element, 0.5), f"{element} (the smoothing element)", high=1.0)
+    return ("nine_point" if corners else "five_point"), {"passes": passes, "weight": weight}
 
 
 def _grid(da, grid: Grid | None) -> Grid:
@@ -493,11 +513,12 @@ def _point_kernel(a, *, corners: bool, passes: int, weight: float, shape: tuple,
 
 
 def _points(da, name, passes, weight, grid):
-    passes = _passes(passes)
-    weight = _number(weight, "weight (the smoothing element)", high=1.0)
+    corners, repeat_name, element_name = _POINT_NAMES[name]
+    passes = _passes(passes, repeat_name)
+    weight = _number(weight, f"{element_name} (the smoothing element)", high=1.0)
     g = _grid(da, grid)
-    kernel = partial(_point_kernel, corners=name == "nine_point", passes=passes, weight=weight, shape=g.shape)
-    desc = f"{name} passes={passes} weight={weight:g}"
+    kernel = partial(_point_kernel, corners=corners, passes=passes, weight=weight, shape=g.shape)
+    desc = f"{name} {repeat_name}={passes} {element_name}={weight:g}"
     return _finish(apply_horizontal(kernel, da, grid=g, blocked=False), da, desc), desc
 
 
@@ -506,9 +527,9 @@ _POINT_COMMON = """
     ----------
     da : xarray.DataArray
         Field on the grid (any leading dimensions; the horizontal pair last).
-    passes : int, optional
-        Number of times the smoother is applied (≥ 1); the response is then R**passes.
-    weight : float, optional
+    {repeat} : int, optional
+        Number of times the smoother is applied (≥ 1); the response is then R**{repeat}.
+    {element} : float, optional
         The smoothing element w, in (0, 1] (default 1/2).
     grid : Grid, optional
         Built from ``da``'s coordinates when omitted (only its dimensions and periodicity are
@@ -518,13 +539,18 @@ _POINT_COMMON = """
     -------
     xarray.DataArray
         Same dims, coords, name and attrs as ``da``, float64, plus
-        ``attrs["qgforce_smoothing"]``, e.g. ``"{name} passes=2 weight=0.5"``.
+        ``attrs["qgforce_smoothing"]``, e.g. ``"{name} {repeat}=2 {element}=0.5"``.
 
     Raises
     ------
     InputDataError
-        If ``passes`` is not a positive integer or ``weight`` not in (0, 1].
+        If ``{repeat}`` is not a positive integer or ``{element}`` not in (0, 1].
 """
+
+
+def _point_doc(name: str) -> str:
+    _, repeat, element = _POINT_NAMES[name]
+    return _POINT_COMMON.replace("{name}", name).replace("{repeat}", repeat).replace("{element}", element)
 
 _POINT_EDGES = """
     Edges and missing values (common practice): the first and last rows, and the first and
@@ -535,18 +561,42 @@ _POINT_EDGES = """
 """
 
 
+def shuman_cross(da: xr.DataArray, repeat: int = 1, element: float = 0.5, grid: Grid | None = None) -> xr.DataArray:
+    return _points(da, "shuman_cross", repeat, element, grid)[0]
+
+
+def shuman_box(da: xr.DataArray, repeat: int = 1, element: float = 0.5, grid: Grid | None = None) -> xr.DataArray:
+    return _points(da, "shuman_box", repeat, element, grid)[0]
+
+
+def _deprecated(old: str, new: str) -> None:
+    warnings.warn(f"qgforce.smoothing.{old} is deprecated and will be removed in the next release; use "
+                  f"{new}(da, repeat=..., element=...) (same filter; 'passes' is now 'repeat', 'weight' 'element')",
+                  DeprecationWarning, stacklevel=3)
+
+
 def five_point(da: xr.DataArray, passes: int = 1, weight: float = 0.5, grid: Grid | None = None) -> xr.DataArray:
+    """Deprecated alias of :func:`shuman_cross` (``passes`` → ``repeat``, ``weight`` → ``element``).
+
+    Warns with :class:`DeprecationWarning`; removed in the next release.
+    """
+    _deprecated("five_point", "shuman_cross")
     return _points(da, "five_point", passes, weight, grid)[0]
 
 
 def nine_point(da: xr.DataArray, passes: int = 1, weight: float = 0.5, grid: Grid | None = None) -> xr.DataArray:
+    """Deprecated alias of :func:`shuman_box` (``passes`` → ``repeat``, ``weight`` → ``element``).
+
+    Warns with :class:`DeprecationWarning`; removed in the next release.
+    """
+    _deprecated("nine_point", "shuman_box")
     return _points(da, "nine_point", passes, weight, grid)[0]
 
 
-five_point.__doc__ = (
+shuman_cross.__doc__ = (
     """Five-point smoother f* = f + (w/4)(f_E + f_W + f_N + f_S − 4 f).
 """
-    + _POINT_COMMON.replace("{name}", "five_point")
+    + _point_doc("shuman_cross")
     + """
     Notes
     -----
@@ -565,6 +615,9 @@ five_point.__doc__ = (
     + """
     References
     ----------
+    Shuman, F. G., 1957: Numerical methods in weather prediction: II. Smoothing and filtering.
+    *Mon. Wea. Rev.*, 85, 357–361 (citation from memory).
+
     Shapiro, R., 1970: Smoothing, filtering, and boundary effects. *Rev. Geophys. Space
     Phys.*, 8, 359–387.
 
@@ -573,10 +626,10 @@ five_point.__doc__ = (
 """
 )
 
-nine_point.__doc__ = (
+shuman_box.__doc__ = (
     """Nine-point smoother: the product of two 1-D three-point smoothers, one per axis.
 """
-    + _POINT_COMMON.replace("{name}", "nine_point")
+    + _point_doc("shuman_box")
     + """
     Notes
     -----
@@ -600,11 +653,16 @@ nine_point.__doc__ = (
     1 − w for the 4Δ wave.  At w = 1/2 the stencil is the outer product of two 1-2-1 filters,
     (1/16)[[1, 2, 1], [2, 4, 2], [1, 2, 1]], with R = cos²(kΔ/2) cos²(lΔ/2): the 2Δ wave along
     either axis is removed, the 4Δ wave halved.  |R| ≤ 1 for w ≤ 1; R ≥ 0 for w ≤ 1/2.
+    Each factor is Shuman's (1957) response of his three-point element to a wave of
+    wavelength L, 1 − 2w sin²(πΔ/L) (kΔ = 2πΔ/L).
 """
     + _POINT_EDGES
     + """
     References
     ----------
+    Shuman, F. G., 1957: Numerical methods in weather prediction: II. Smoothing and filtering.
+    *Mon. Wea. Rev.*, 85, 357–361 (citation from memory).
+
     Shapiro, R., 1970: Smoothing, filtering, and boundary effects. *Rev. Geophys. Space
     Phys.*, 8, 359–387.
 
@@ -642,7 +700,7 @@ def _parse(spec) -> tuple[str | None, dict]:
             return method, {}
         if not re.fullmatch(r"[+-]?[0-9]+", arg):
             raise _bad(spec, f"the number of passes must be a whole number; found {arg!r}")
-        return method, {"passes": int(arg)}
+        return method, {_POINT_NAMES[method][1]: int(arg)}
     if isinstance(spec, Mapping):
         if "method" not in spec:
             raise _bad(spec, "the mapping has no 'method' key")
@@ -660,7 +718,7 @@ def _parse(spec) -> tuple[str | None, dict]:
     raise _bad(spec, f"expected None, a string or a mapping, found {type(spec).__name__}")
 
 
-def smooth(da: xr.DataArray, smoothing, grid: Grid | None = None) -> tuple[xr.DataArray, str]:
+def smooth(da: xr.DataArray, smoothing, grid: Grid | None = None, *, describe: bool = False):
     """Smooth a field as a diagnostic's ``smoothing`` argument asks; the one dispatcher.
 
     Parameters
@@ -669,32 +727,36 @@ def smooth(da: xr.DataArray, smoothing, grid: Grid | None = None) -> tuple[xr.Da
         Field on the grid.
     smoothing : None, str or mapping
         ``None`` (or ``"none"``): no smoothing.  A string ``"gaussian:150km"`` or
-        ``"gaussian:150"`` (σ in km, see :func:`gaussian`), ``"five_point"``,
-        ``"five_point:2"``, ``"nine_point"``, ``"nine_point:3"`` (the number after the colon
-        is the number of passes, see :func:`five_point`, :func:`nine_point`).  Or a mapping
-        with ``"method"`` and that method's keyword arguments:
+        ``"gaussian:150"`` (σ in km, see :func:`gaussian`), ``"shuman_cross"``,
+        ``"shuman_cross:2"``, ``"shuman_box"``, ``"shuman_box:3"`` (the number after the colon
+        is the repeat count, see :func:`shuman_cross`, :func:`shuman_box`; the former names
+        ``"five_point"`` and ``"nine_point"`` are still accepted).  Or a mapping with
+        ``"method"`` and that method's keyword arguments:
         ``{"method": "gaussian", "length_km": 150, "truncate": 3.0, "min_weight": 0.5}``,
-        ``{"method": "nine_point", "passes": 3, "weight": 0.5}``.
+        ``{"method": "shuman_box", "repeat": 3, "element": 0.5}``.
     grid : Grid, optional
         Built from ``da``'s coordinates when omitted.
+    describe : bool, optional
+        Also return the one-line description (default False).
 
     Returns
     -------
     smoothed : xarray.DataArray
         ``da`` itself when no smoothing is asked; otherwise the filtered field, with
-        ``attrs["qgforce_smoothing"]`` recording the filter.
+        ``attrs["qgforce_smoothing"]`` recording the filter (as every filter returns).
     description : str
-        One line for the attributes of a diagnostic's output: ``"none"``,
-        ``"gaussian sigma=150 km truncate=3"``, ``"nine_point passes=3 weight=0.5"``, ...
+        Only with ``describe=True``: one line for the attributes of a diagnostic's output:
+        ``"none"``, ``"gaussian sigma=150 km truncate=3"``, ``"shuman_box repeat=3 element=0.5"``, ...
 
     Raises
     ------
     InputDataError
         If the specification is not one of the accepted forms (the message lists them), or
-        a length, number of passes or weight is out of range.
+        a length, repeat count or element is out of range.
     OptionError
-        If the filter would reduce the fields to their domain mean (every derivative zero) or
-        asks for more than :data:`qgforce._smoothing_check.MAX_POINT_PASSES` passes
+        If ``describe`` is not a bool; if the filter would reduce the fields to their domain mean
+        (every derivative zero) or asks for more than
+        :data:`qgforce._smoothing_check.MAX_POINT_PASSES` repeats
         (:func:`qgforce._smoothing_check.check_smoothing`).
 
     Warns
@@ -709,21 +771,25 @@ def smooth(da: xr.DataArray, smoothing, grid: Grid | None = None) -> tuple[xr.Da
     >>> lat = np.arange(20.0, 71.0); lon = np.arange(0.0, 60.0)
     >>> z = xr.DataArray(np.random.default_rng(1).normal(size=(lat.size, lon.size)),
     ...                  dims=("latitude", "longitude"), coords={"latitude": lat, "longitude": lon})
-    >>> S.smooth(z, "nine_point:2")[1]
-    'nine_point passes=2 weight=0.5'
-    >>> S.smooth(z, {"method": "gaussian", "length_km": 150})[1]
+    >>> S.smooth(z, "shuman_box:2").attrs["qgforce_smoothing"]
+    'shuman_box repeat=2 element=0.5'
+    >>> S.smooth(z, {"method": "gaussian", "length_km": 150}, describe=True)[1]
     'gaussian sigma=150 km truncate=3'
-    >>> S.smooth(z, None)[1]
-    'none'
+    >>> S.smooth(z, None) is z
+    True
     """
+    if not isinstance(describe, bool):
+        raise OptionError(f"describe must be True or False; found {describe!r}")
     method, kwargs = _parse(smoothing)
     if method is None:
-        return da, "none"
-    grid = _grid(da, grid)
-    _check_values(method, kwargs)
-    check_smoothing(smoothing if isinstance(smoothing, str) else str(dict(smoothing)), method, kwargs, grid)
-    if method == "gaussian":
-        return _gaussian(
-            da, kwargs["length_km"], grid, kwargs.get("truncate", 3.0), kwargs.get("min_weight", 0.5)
-        )
-    return _points(da, method, kwargs.get("passes", 1), kwargs.get("weight", 0.5), grid)
+        out = (da, "none")
+    else:
+        grid = _grid(da, grid)
+        checked = _check_values(method, kwargs)
+        check_smoothing(smoothing if isinstance(smoothing, str) else str(dict(smoothing)), *checked, grid)
+        if method == "gaussian":
+            out = _gaussian(da, kwargs["length_km"], grid, kwargs.get("truncate", 3.0), kwargs.get("min_weight", 0.5))
+        else:
+            _, repeat, element = _POINT_NAMES[method]
+            out = _points(da, method, kwargs.get(repeat, 1), kwargs.get(element, 0.5), grid)
+    return out if describe else out[0]

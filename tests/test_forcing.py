@@ -675,10 +675,10 @@ def test_smoothing_is_applied_to_the_inputs(beta_plane_case):
     out = F.q_vectors(ds, smoothing=spec, f0_latitude=45.0)
     pre = ds.copy()
     for k in ("temperature", "geopotential"):
-        pre[k] = smooth(ds[k], spec)[0]
+        pre[k] = smooth(ds[k], spec)
     ref = F.q_vectors(pre, f0_latitude=45.0)
     np.testing.assert_allclose(out.q_vector_forcing.values, ref.q_vector_forcing.values, rtol=1e-13)
-    assert out.q_vector_x.attrs["qgforce_smoothing"] == smooth(ds.temperature, spec)[1] != "none"
+    assert out.q_vector_x.attrs["qgforce_smoothing"] == smooth(ds.temperature, spec, describe=True)[1] != "none"
     assert not np.allclose(out.q_vector_forcing.values, F.q_vectors(ds, f0_latitude=45.0).q_vector_forcing.values,
                            rtol=1e-3, atol=0)
     assert F.q_vectors(ds, f0_latitude=45.0).q_vector_x.attrs["qgforce_smoothing"] == "none"

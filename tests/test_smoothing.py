@@ -468,7 +468,7 @@ def test_lazy_on_dask_and_equal_to_numpy(no_compute):
         "gaussian": (S.gaussian(lazy, 600.0), lambda: S.gaussian(stack, 600.0)),
         "five_point": (S.five_point(lazy, passes=2), lambda: S.five_point(stack, passes=2)),
         "nine_point": (S.nine_point(lazy, passes=2), lambda: S.nine_point(stack, passes=2)),
-        "smooth": (S.smooth(lazy, "gaussian:300km")[0], lambda: S.smooth(stack, "gaussian:300km")[0]),
+        "smooth": (S.smooth(lazy, "gaussian:300km"), lambda: S.smooth(stack, "gaussian:300km")),
     }
     for name, (out, eager) in outs.items():
         assert isinstance(out.data, dsa.Array), name
@@ -486,9 +486,9 @@ def test_large_fields_are_filtered_whole():
     vals = np.random.default_rng(4).normal(size=(2, lat.size, lon.size))
     stack = latlon_da(vals, lat, lon, extra={"level": np.array([85000.0, 50000.0])})
     for smoothing in ("gaussian:250km", "five_point", "nine_point:3"):
-        whole = S.smooth(stack, smoothing)[0].values
+        whole = S.smooth(stack, smoothing).values
         for k in range(2):
-            alone = S.smooth(stack.isel(level=k), smoothing)[0].values
+            alone = S.smooth(stack.isel(level=k), smoothing).values
             np.testing.assert_allclose(whole[k], alone, rtol=1e-14, atol=1e-14, err_msg=smoothing)
 
 
@@ -514,7 +514,7 @@ FORMS = [
 @pytest.mark.parametrize("spec,description,direct", FORMS, ids=[str(f[0]) for f in FORMS])
 def test_smooth_accepts_every_documented_form(spec, description, direct):
     # The forms listed in smooth()'s docstring; the result equals calling the filter directly.
-    out, desc = S.smooth(FIELD, spec)
+    out, desc = S.smooth(FIELD, spec, describe=True)
     assert desc == description
     assert out.attrs["qgforce_smoothing"] == description
     np.testing.assert_array_equal(out.values, direct(FIELD).values)
@@ -522,7 +522,7 @@ def test_smooth_accepts_every_documented_form(spec, description, direct):
 
 @pytest.mark.parametrize("spec", [None, "none", "", " None "])
 def test_smooth_none_returns_the_input(spec):
-    out, desc = S.smooth(FIELD, spec)
+    out, desc = S.smooth(FIELD, spec, describe=True)
     assert out is FIELD and desc == "none"
 
 
