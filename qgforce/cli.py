@@ -82,7 +82,8 @@ _OPTIONS = {o.dest: o for o in (
             "'both' adds the traditional form with suffixed names", "choice", default="qvector",
             choices=("qvector", "traditional", "both")),
     _Option("smoothing", ("--smoothing",), "smoothing of the input fields before any derivative: "
-            "gaussian:150km, five_point[:passes], nine_point[:passes] or none", "text", default="none",
+            "gaussian:150km, shuman_cross[:repeat], shuman_box[:repeat] (Shuman 1957 point smoothers) or none",
+            "text", default="none",
             metavar="SPEC"),
     _Option("coriolis", ("--coriolis",), "f0: one reference Coriolis parameter (textbook QG); local: f(latitude). "
             "Default: f0 at the cos(latitude)-weighted mean latitude when the grid (or the region) lies in one "

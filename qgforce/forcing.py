@@ -124,7 +124,7 @@ _COMMON_DOC = """coriolis : {None, "f0", "local"}, optional
         points where f = 0 exactly are always masked, so no output is ever infinite.
     smoothing : str, dict or None, optional
         Smoother applied to the *input* fields (T, Φ, u, v) before any derivative, through
-        :func:`qgforce.smoothing.smooth` (e.g. ``"gaussian:150km"``, ``"nine_point:2"``);
+        :func:`qgforce.smoothing.smooth` (e.g. ``"gaussian:150km"``, ``"shuman_box:2"``);
         recorded in the ``qgforce_smoothing`` attribute.
     levels : sequence of float, optional
         Pressures to return, in Pa or hPa (values below 2000 are read as hPa); each must be a
