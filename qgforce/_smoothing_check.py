@@ -69,9 +69,9 @@ def effective_sigma_km(method: str, kwargs: dict, step_km: float) -> float:
     """The standard deviation [km] of the Gaussian that the filter matches at long wavelengths."""
     if method == "gaussian":
         return float(kwargs["length_km"])
-    passes, weight = int(kwargs.get("passes", 1)), float(kwargs.get("weight", 0.5))
-    per_pass = weight / 2.0 if method == "five_point" else weight
-    return step_km * math.sqrt(passes * per_pass)
+    repeat, element = int(kwargs.get("repeat", 1)), float(kwargs.get("element", 0.5))
+    per_pass = element / 2.0 if method == "shuman_cross" else element
+    return step_km * math.sqrt(repeat * per_pass)
 
 
 def check_smoothing(spec: str, method: str, kwargs: dict, grid) -> None:
@@ -100,11 +100,11 @@ def check_smoothing(spec: str, method: str, kwargs: dict, grid) -> None:
         return
     step, extent, axis = _grid_lengths_km(grid)
     where = f"smoothing {spec!r}"
-    passes = int(kwargs.get("passes", 1)) if method != "gaussian" else 1
+    repeat = int(kwargs.get("repeat", 1)) if method != "gaussian" else 1
     sigma = effective_sigma_km(method, kwargs, step)
-    if passes > MAX_POINT_PASSES:
+    if repeat > MAX_POINT_PASSES:
         raise OptionError(
-            f"{where}: {passes} passes is more than the {MAX_POINT_PASSES} allowed (each pass sweeps the whole grid); "
+            f"{where}: {repeat} passes is more than the {MAX_POINT_PASSES} allowed (each pass sweeps the whole grid); "
             f"these passes smooth like gaussian:{sigma:.0f}km on this grid (grid length {step:.0f} km), which does it "
             "in one sweep")
     if _response(sigma, extent) < KEPT_AT_DOMAIN_SCALE:

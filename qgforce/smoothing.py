@@ -114,8 +114,8 @@ def _passes(value, name: str = "passes") -> int:
 def _check_values(method: str, kwargs: dict) -> tuple:
     """The range checks of the filters' arguments, before the grid checks use them.
 
-    Returns the (method, arguments) the grid check reads: a point smoother as ``five_point`` or
-    ``nine_point`` with ``passes`` and ``weight``, whichever of its names was given.
+    Returns the (method, arguments) the grid check reads: a point smoother as ``shuman_cross`` or
+    ``shuman_box`` with ``repeat`` and ``element``, whichever of its names was given.
     """
     if method == "gaussian":
         _number(kwargs["length_km"], "length_km (the standard deviation sigma of the Gaussian, in km)")
@@ -123,7 +123,7 @@ def _check_values(method: str, kwargs: dict) -> tuple:
     corners, repeat, element = _POINT_NAMES[method]
     passes = _passes(kwargs.get(repeat, 1), repeat)
     weight = _number(kwargs.get(element, 0.5), f"{element} (the smoothing element)", high=1.0)
-    return ("nine_point" if corners else "five_point"), {"passes": passes, "weight": weight}
+    return ("shuman_box" if corners else "shuman_cross"), {"repeat": passes, "element": weight}
 
 
 def _grid(da, grid: Grid | None) -> Grid:
@@ -699,7 +699,8 @@ def _parse(spec) -> tuple[str | None, dict]:
         if not arg:
             return method, {}
         if not re.fullmatch(r"[+-]?[0-9]+", arg):
-            raise _bad(spec, f"the number of passes must be a whole number; found {arg!r}")
+            count = "number of passes" if _POINT_NAMES[method][1] == "passes" else "repeat count"
+            raise _bad(spec, f"the {count} must be a whole number; found {arg!r}")
         return method, {_POINT_NAMES[method][1]: int(arg)}
     if isinstance(spec, Mapping):
         if "method" not in spec:

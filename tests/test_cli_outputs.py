@@ -76,7 +76,7 @@ def test_section_help_and_a_section_from_the_command_line(one_time, tmp_path, ca
     (("--end", "95,10"), ("--end", "[-90, 90]")),
     (("--end", "62,-100", "--points", "1"), ("--points",)),
     (("--end", "62,-100", "--fields", "nonsense"), ("nonsense",)),
-    (("--end", "62,-100", "--smoothing", "five_point:100000"), ("100000 passes",)),  # computing options reach it
+    (("--end", "62,-100", "--smoothing", "shuman_cross:100000"), ("100000 passes",)),  # computing options reach it
     (("--end", "62,-100", "--coriolis", "local", "--f0-latitude", "50"), ("contradict",)),
 ])
 def test_section_mistakes_are_one_line_and_write_nothing(one_time, tmp_path, capsys, extra, fragments):
@@ -228,7 +228,8 @@ def test_existing_output_message_speaks_options(one_time, tmp_path, capsys):
 
 # ============================================================================ smoothing against the grid
 @pytest.mark.parametrize("spec,fragments", [
-    ("five_point:100000", ("100000 passes", "500", "gaussian:")),
+    ("five_point:100000", ("100000 passes", "500", "gaussian:")),  # the former name
+    ("shuman_cross:100000", ("100000 passes", "500", "gaussian:")),
     ("gaussian:1e9km", ("domain mean", "every forcing term zero")),
 ])
 def test_smoothing_that_would_take_minutes_or_return_zeros_is_refused(one_time, tmp_path, capsys, spec, fragments):
@@ -253,7 +254,7 @@ def _field(nx=80, ny=41, wavelength=40.0):
     return xr.DataArray(data.copy(), dims=("latitude", "longitude"), coords={"latitude": lat, "longitude": lon})
 
 
-@pytest.mark.parametrize("method,passes", [("five_point", 10), ("nine_point", 4), ("five_point", 40)])
+@pytest.mark.parametrize("method,passes", [("shuman_cross", 10), ("shuman_box", 4), ("shuman_cross", 40)])
 def test_effective_sigma_of_the_point_smoothers(method, passes):
     """The checks' Gaussian equivalent of n passes reproduces the smoothers' damping of long waves.
 
@@ -265,11 +266,11 @@ def test_effective_sigma_of_the_point_smoothers(method, passes):
     da = _field(wavelength=wavelength)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        out = getattr(S, method)(da, passes=passes, weight=w)
+        out = getattr(S, method)(da, repeat=passes, element=w)
     measured = float(out.isel(latitude=20, longitude=40) / da.isel(latitude=20, longitude=40))
-    per_pass = 1 - (w / 2 if method == "five_point" else w) * (1 - math.cos(2 * math.pi / wavelength))
+    per_pass = 1 - (w / 2 if method == "shuman_cross" else w) * (1 - math.cos(2 * math.pi / wavelength))
     assert measured == pytest.approx(per_pass ** passes, rel=1e-9)  # the kernel is the textbook smoother
-    sigma = SC.effective_sigma_km(method, {"passes": passes, "weight": w}, 1.0)  # in grid lengths
+    sigma = SC.effective_sigma_km(method, {"repeat": passes, "element": w}, 1.0)  # in grid lengths
     assert math.exp(-2 * math.pi ** 2 * sigma ** 2 / wavelength ** 2) == pytest.approx(measured, rel=2e-3)
 
 
@@ -280,7 +281,7 @@ def test_smooth_warns_for_a_gaussian_narrower_than_the_grid():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         S.smooth(da, "gaussian:150km")
-        S.smooth(da, "nine_point:3")
+        S.smooth(da, "shuman_box:3")
 
 
 # ============================================================================ -q

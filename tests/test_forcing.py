@@ -671,7 +671,7 @@ def test_smoothing_is_applied_to_the_inputs(beta_plane_case):
 
     _, build, _ = beta_plane_case
     ds, _ = build(25, 3)
-    spec = "nine_point:2"
+    spec = "shuman_box:2"
     out = F.q_vectors(ds, smoothing=spec, f0_latitude=45.0)
     pre = ds.copy()
     for k in ("temperature", "geopotential"):
@@ -700,7 +700,7 @@ PUBLIC_CALLS = {
     "frontogenesis_geostrophic": lambda ds: F.frontogenesis(ds, wind="geostrophic", coriolis="local"),
     "omega_rhs_traditional": lambda ds: F.omega_rhs(ds, f0_latitude=45.0, levels=[600, 450]),
     "omega_rhs_qvector": lambda ds: F.omega_rhs(ds, "qvector", f0_latitude=45.0),
-    "forcing_terms": lambda ds: F.forcing_terms(ds, f0_latitude=45.0, smoothing="nine_point:1"),
+    "forcing_terms": lambda ds: F.forcing_terms(ds, f0_latitude=45.0, smoothing="shuman_box:1"),
 }
 
 

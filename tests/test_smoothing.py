@@ -98,8 +98,8 @@ CONSTANT = dict(constant_cases())
 FILTERS = {
     "gaussian-150km": lambda da: S.gaussian(da, 150.0),
     "gaussian-900km-t4": lambda da: S.gaussian(da, 900.0, truncate=4.0),  # wide: polar rows hit the cap
-    "five_point-3": lambda da: S.five_point(da, passes=3),
-    "nine_point-3-w0.7": lambda da: S.nine_point(da, passes=3, weight=0.7),
+    "shuman_cross-3": lambda da: S.shuman_cross(da, repeat=3),
+    "shuman_box-3-e0.7": lambda da: S.shuman_box(da, repeat=3, element=0.7),
 }
 
 
@@ -371,7 +371,7 @@ WAVES = {  # (k, l) in radians per grid length
 }
 
 
-@pytest.mark.parametrize("name", ["five_point", "nine_point"])
+@pytest.mark.parametrize("name", ["shuman_cross", "shuman_box"])
 @pytest.mark.parametrize("wave", list(WAVES))
 @pytest.mark.parametrize("weight", [0.5, 0.3])
 @pytest.mark.parametrize("passes", [1, 3])
@@ -381,44 +381,44 @@ def test_point_smoother_response(name, wave, weight, passes):
     lat, lon = np.arange(30.0, 54.1, 1.0), np.arange(0.0, 24.1, 1.0)
     J, I = np.meshgrid(np.arange(lat.size), np.arange(lon.size), indexing="ij")
     f = np.cos(k * I + l * J + 0.3)
-    out = getattr(S, name)(latlon_da(f, lat, lon), passes=passes, weight=weight).values
-    r = (R5_F if name == "five_point" else R9_F)(k, l, weight)
+    out = getattr(S, name)(latlon_da(f, lat, lon), repeat=passes, element=weight).values
+    r = (R5_F if name == "shuman_cross" else R9_F)(k, l, weight)
     inner = (slice(passes, -passes), slice(passes, -passes))
     np.testing.assert_allclose(out[inner], r**passes * f[inner], rtol=0, atol=1e-13)
-    if name == "five_point" and wave in ("2dx", "2dy"):
+    if name == "shuman_cross" and wave in ("2dx", "2dy"):
         assert np.isclose(r, 1 - weight)  # one axis only: 1 − (w/2)(1 − cos π)
-    if name == "nine_point" and wave in ("2dx", "4dx"):
+    if name == "shuman_box" and wave in ("2dx", "4dx"):
         assert np.isclose(r, 1 - weight * (1 - np.cos(k)))
 
 
-def test_nine_point_at_one_half_is_the_product_of_two_1_2_1_filters():
+def test_shuman_box_at_one_half_is_the_product_of_two_1_2_1_filters():
     # Shapiro (1970): the 1-2-1 filter; the 3x3 impulse response at w = 1/2 is their outer product.
     f = np.zeros((9, 9))
     f[4, 4] = 1.0
     grid, x, y = flat_grid(9, 9, 1e4, 1e4)
-    out = S.nine_point(flat_da(f, x, y), grid=grid).values
+    out = S.shuman_box(flat_da(f, x, y), grid=grid).values
     expected = np.zeros((9, 9))
     expected[3:6, 3:6] = np.outer([1, 2, 1], [1, 2, 1]) / 16
     np.testing.assert_allclose(out, expected, rtol=0, atol=1e-16)
 
 
-@pytest.mark.parametrize("name", ["five_point", "nine_point"])
+@pytest.mark.parametrize("name", ["shuman_cross", "shuman_box"])
 def test_point_smoothers_wrap_periodic_longitude_and_keep_edges(name):
     # Common practice: the first/last rows (and columns on open grids) are unchanged; periodic
     # longitude wraps, so the 2Δλ wave is damped by R (sympy) in every column, edges included.
     f = np.cos(np.pi * np.arange(GLOBAL_LON.size))[None, :] * np.ones((GLOBAL_LAT.size, 1))
     out = getattr(S, name)(latlon_da(f, GLOBAL_LAT, GLOBAL_LON)).values
-    r = (R5_F if name == "five_point" else R9_F)(np.pi, 0.0, 0.5)
+    r = (R5_F if name == "shuman_cross" else R9_F)(np.pi, 0.0, 0.5)
     np.testing.assert_allclose(out[1:-1], r * f[1:-1], atol=1e-14)
     np.testing.assert_array_equal(out[[0, -1]], f[[0, -1]])
     g = np.random.default_rng(0).normal(size=(REG_LAT.size, REG_LON.size))
-    reg = getattr(S, name)(latlon_da(g, REG_LAT, REG_LON), passes=2).values
+    reg = getattr(S, name)(latlon_da(g, REG_LAT, REG_LON), repeat=2).values
     for edge in (np.s_[0, :], np.s_[-1, :], np.s_[:, 0], np.s_[:, -1]):
         np.testing.assert_array_equal(reg[edge], g[edge])
     assert not np.allclose(reg[1:-1, 1:-1], g[1:-1, 1:-1])
 
 
-@pytest.mark.parametrize("name", ["five_point", "nine_point"])
+@pytest.mark.parametrize("name", ["shuman_cross", "shuman_box"])
 def test_point_smoothers_never_spread_nan(name):
     # Common practice: a point whose stencil touches a NaN keeps its value.
     rng = np.random.default_rng(5)
@@ -427,14 +427,14 @@ def test_point_smoothers_never_spread_nan(name):
     holed[10:14, 20:25] = np.nan
     holed[30, 40] = np.nan
     smoother = getattr(S, name)
-    multi = smoother(latlon_da(holed, REG_LAT, REG_LON), passes=3).values
+    multi = smoother(latlon_da(holed, REG_LAT, REG_LON), repeat=3).values
     np.testing.assert_array_equal(np.isnan(multi), np.isnan(holed))
     one = smoother(latlon_da(holed, REG_LAT, REG_LON)).values
     clean = smoother(latlon_da(f, REG_LAT, REG_LON)).values
     nan = np.isnan(holed)
     pad = np.pad(nan, 1)
     near = np.zeros_like(nan)
-    offsets = [(-1, 0), (1, 0), (0, -1), (0, 1)] + ([(-1, -1), (-1, 1), (1, -1), (1, 1)] if name == "nine_point" else [])
+    offsets = [(-1, 0), (1, 0), (0, -1), (0, 1)] + ([(-1, -1), (-1, 1), (1, -1), (1, 1)] if name == "shuman_box" else [])
     for di, dj in offsets + [(0, 0)]:
         near |= pad[1 + di : pad.shape[0] - 1 + di, 1 + dj : pad.shape[1] - 1 + dj]
     np.testing.assert_array_equal(one[near & ~nan], holed[near & ~nan])  # kept as they were
@@ -452,8 +452,8 @@ def test_outputs_keep_name_coords_attrs_and_record_the_filter():
     assert out.attrs["units"] == "K" and out.attrs["standard_name"] == "air_temperature"
     assert out.attrs["qgforce_smoothing"] == "gaussian sigma=200 km truncate=3"
     xr.testing.assert_identical(out.coords.to_dataset(), da.coords.to_dataset())
-    again = S.five_point(out, passes=2)
-    assert again.attrs["qgforce_smoothing"] == "gaussian sigma=200 km truncate=3; then five_point passes=2 weight=0.5"
+    again = S.shuman_cross(out, repeat=2)
+    assert again.attrs["qgforce_smoothing"] == "gaussian sigma=200 km truncate=3; then shuman_cross repeat=2 element=0.5"
     assert "qgforce_smoothing" not in da.attrs  # the input is not modified
 
 
@@ -466,8 +466,8 @@ def test_lazy_on_dask_and_equal_to_numpy(no_compute):
     lazy = stack.chunk({"time": 1, "level": 1, "latitude": 12})  # horizontal chunks are merged, not computed
     outs = {
         "gaussian": (S.gaussian(lazy, 600.0), lambda: S.gaussian(stack, 600.0)),
-        "five_point": (S.five_point(lazy, passes=2), lambda: S.five_point(stack, passes=2)),
-        "nine_point": (S.nine_point(lazy, passes=2), lambda: S.nine_point(stack, passes=2)),
+        "shuman_cross": (S.shuman_cross(lazy, repeat=2), lambda: S.shuman_cross(stack, repeat=2)),
+        "shuman_box": (S.shuman_box(lazy, repeat=2), lambda: S.shuman_box(stack, repeat=2)),
         "smooth": (S.smooth(lazy, "gaussian:300km"), lambda: S.smooth(stack, "gaussian:300km")),
     }
     for name, (out, eager) in outs.items():
@@ -485,7 +485,7 @@ def test_large_fields_are_filtered_whole():
     lat, lon = np.linspace(-64.0, 65.0, 260), np.arange(-100.0, 160.0, 0.5)
     vals = np.random.default_rng(4).normal(size=(2, lat.size, lon.size))
     stack = latlon_da(vals, lat, lon, extra={"level": np.array([85000.0, 50000.0])})
-    for smoothing in ("gaussian:250km", "five_point", "nine_point:3"):
+    for smoothing in ("gaussian:250km", "shuman_cross", "shuman_box:3"):
         whole = S.smooth(stack, smoothing).values
         for k in range(2):
             alone = S.smooth(stack.isel(level=k), smoothing).values
@@ -499,15 +499,22 @@ FORMS = [
     ("gaussian:150km", "gaussian sigma=150 km truncate=3", lambda d: S.gaussian(d, 150.0)),
     ("gaussian:150", "gaussian sigma=150 km truncate=3", lambda d: S.gaussian(d, 150.0)),
     (" Gaussian : 87.5 km ", "gaussian sigma=87.5 km truncate=3", lambda d: S.gaussian(d, 87.5)),
-    ("five_point", "five_point passes=1 weight=0.5", lambda d: S.five_point(d)),
-    ("five_point:2", "five_point passes=2 weight=0.5", lambda d: S.five_point(d, 2)),
-    ("nine_point:3", "nine_point passes=3 weight=0.5", lambda d: S.nine_point(d, 3)),
+    ("shuman_cross", "shuman_cross repeat=1 element=0.5", lambda d: S.shuman_cross(d)),
+    ("shuman_cross:2", "shuman_cross repeat=2 element=0.5", lambda d: S.shuman_cross(d, 2)),
+    ("Shuman_Box : 3", "shuman_box repeat=3 element=0.5", lambda d: S.shuman_box(d, 3)),
+    ("five_point", "five_point passes=1 weight=0.5", lambda d: S.shuman_cross(d)),  # former names still read
+    ("five_point:2", "five_point passes=2 weight=0.5", lambda d: S.shuman_cross(d, 2)),
+    ("nine_point:3", "nine_point passes=3 weight=0.5", lambda d: S.shuman_box(d, 3)),
     ({"method": "gaussian", "length_km": 150}, "gaussian sigma=150 km truncate=3", lambda d: S.gaussian(d, 150)),
     ({"method": "gaussian", "length_km": 200.0, "truncate": 4, "min_weight": 0.8},
      "gaussian sigma=200 km truncate=4 min_weight=0.8", lambda d: S.gaussian(d, 200.0, truncate=4, min_weight=0.8)),
+    ({"method": "shuman_box", "repeat": 3, "element": 0.5}, "shuman_box repeat=3 element=0.5",
+     lambda d: S.shuman_box(d, 3, 0.5)),
+    ({"method": "shuman_cross", "element": 0.25}, "shuman_cross repeat=1 element=0.25",
+     lambda d: S.shuman_cross(d, 1, 0.25)),
     ({"method": "nine_point", "passes": 3, "weight": 0.5}, "nine_point passes=3 weight=0.5",
-     lambda d: S.nine_point(d, 3, 0.5)),
-    ({"method": "five_point", "weight": 0.25}, "five_point passes=1 weight=0.25", lambda d: S.five_point(d, 1, 0.25)),
+     lambda d: S.shuman_box(d, 3, 0.5)),
+    ({"method": "five_point", "weight": 0.25}, "five_point passes=1 weight=0.25", lambda d: S.shuman_cross(d, 1, 0.25)),
 ]
 
 
@@ -536,6 +543,11 @@ BAD = [
     ("five_point:0", "passes must be a positive integer"),
     ("nine_point:-2", "passes must be a positive integer"),
     ("nine_point:1.5", "number of passes must be a whole number"),
+    ("shuman_cross:0", "repeat must be a positive integer"),
+    ("shuman_box:1.5", "repeat count must be a whole number"),
+    ({"method": "shuman_box", "repeat": 2.0}, "repeat must be a positive integer"),
+    ({"method": "shuman_cross", "element": 0}, r"element .* must be in \(0, 1\]"),
+    ({"method": "shuman_cross", "passes": 2}, r"unknown key\(s\) \['passes'\]"),
     ({"length_km": 100}, "no 'method' key"),
     ({"method": "box", "length_km": 100}, "unknown method 'box'"),
     ({"method": "gaussian"}, "needs 'length_km'"),
@@ -568,7 +580,7 @@ def test_bad_spec_message_lists_accepted_forms():
 def test_direct_calls_validate_arguments():
     with pytest.raises(InputDataError, match="length_km .* must be positive"):
         S.gaussian(FIELD, -100.0)
-    with pytest.raises(InputDataError, match="passes must be a positive integer"):
-        S.five_point(FIELD, passes=True)
+    with pytest.raises(InputDataError, match="repeat must be a positive integer"):
+        S.shuman_cross(FIELD, repeat=True)
     with pytest.raises(InputDataError, match="one xarray.DataArray at a time"):
-        S.smooth(FIELD.to_dataset(), "five_point")
+        S.smooth(FIELD.to_dataset(), "shuman_cross")
