@@ -593,6 +593,19 @@ def nine_point(da: xr.DataArray, passes: int = 1, weight: float = 0.5, grid: Gri
     return _points(da, "nine_point", passes, weight, grid)[0]
 
 
+_POINT_REFERENCES = """
+    References
+    ----------
+    Shuman, F. G., 1957: Numerical methods in weather prediction: II. Smoothing and filtering.
+    *Mon. Wea. Rev.*, 85, 357–361 (citation from memory).
+
+    Shapiro, R., 1970: Smoothing, filtering, and boundary effects. *Rev. Geophys. Space
+    Phys.*, 8, 359–387.
+
+    Haltiner, G. J. and R. T. Williams, 1980: *Numerical Prediction and Dynamic Meteorology*,
+    2nd ed., Wiley.
+"""
+
 shuman_cross.__doc__ = (
     """Five-point smoother f* = f + (w/4)(f_E + f_W + f_N + f_S − 4 f).
 """
@@ -612,18 +625,7 @@ shuman_cross.__doc__ = (
     1 − 2w, removed at w = 1/2.  0 ≤ R ≤ 1 for w ≤ 1/2; |R| ≤ 1 for w ≤ 1.
 """
     + _POINT_EDGES
-    + """
-    References
-    ----------
-    Shuman, F. G., 1957: Numerical methods in weather prediction: II. Smoothing and filtering.
-    *Mon. Wea. Rev.*, 85, 357–361 (citation from memory).
-
-    Shapiro, R., 1970: Smoothing, filtering, and boundary effects. *Rev. Geophys. Space
-    Phys.*, 8, 359–387.
-
-    Haltiner, G. J. and R. T. Williams, 1980: *Numerical Prediction and Dynamic Meteorology*,
-    2nd ed., Wiley.
-"""
+    + _POINT_REFERENCES
 )
 
 shuman_box.__doc__ = (
@@ -657,18 +659,7 @@ shuman_box.__doc__ = (
     wavelength L, 1 − 2w sin²(πΔ/L) (kΔ = 2πΔ/L).
 """
     + _POINT_EDGES
-    + """
-    References
-    ----------
-    Shuman, F. G., 1957: Numerical methods in weather prediction: II. Smoothing and filtering.
-    *Mon. Wea. Rev.*, 85, 357–361 (citation from memory).
-
-    Shapiro, R., 1970: Smoothing, filtering, and boundary effects. *Rev. Geophys. Space
-    Phys.*, 8, 359–387.
-
-    Haltiner, G. J. and R. T. Williams, 1980: *Numerical Prediction and Dynamic Meteorology*,
-    2nd ed., Wiley.
-"""
+    + _POINT_REFERENCES
 )
 
 
