@@ -1,7 +1,7 @@
 """Benchmarks of column lifting and hours to initiation (:mod:`qgforce.ascent`); figures under ``ascent.``.
 
 Figures (every ratio measured side by side in one run, numpy-backed DataArrays, public functions;
-in memory the blocks of columns run on the cores of the machine, see ``qgforce.moist._by_blocks``):
+in memory the blocks of columns run on the cores of the machine, see ``qgforce.columns.by_blocks``):
 
 ``ascent.lift_ratio``
     time of :func:`qgforce.ascent.lift_columns` (6 h of ascent: every parcel lifted, the column

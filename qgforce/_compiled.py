@@ -1,15 +1,15 @@
-"""Compiled column loops (numba) of :mod:`qgforce.moist` and :mod:`qgforce.ascent`.
+"""Compiled column loops (numba) of :mod:`qgforce.columns` and :mod:`qgforce.ascent`.
 
 The column diagnostics follow every column level by level with branches that differ from
 column to column (where the buoyancy changes sign, where the LCL lies, how many layers a parcel
 crosses).  Written with whole numpy rows, such loops spend most of their time on masks and
 temporaries; here each is a scalar loop over levels (outer) and columns (inner, so that
 neighbouring columns read neighbouring memory), compiled once per machine and run without the
-GIL, so that threads run blocks of columns side by side (:func:`qgforce.moist._by_blocks` in
+GIL, so that threads run blocks of columns side by side (:func:`qgforce.columns.by_blocks` in
 memory, dask's threads on chunks).
 
 Each kernel is documented where it is called; these functions only do the arithmetic, on arrays
-the callers computed with the formulas of :mod:`qgforce.moist`.  They call no function of
+the callers computed with the formulas of :mod:`qgforce.thermo.formulas`.  They call no function of
 another module, and must not: numba's on-disk cache (``cache=True``: beside this file, or in the
 user's cache directory when the package directory is read-only) is refreshed when this file
 changes, not when a module it calls does.
@@ -72,7 +72,7 @@ def _segment(sp, bp, tp, ci, nt, ce, sf, se, fd, sb, bb, tb, gate, lcl_point, r_
 
 @numba.njit(**_JIT)
 def buoyancy_integrals(s, pi, tv_env, env, rows, k1, kfirst, s0, tv0, s_lcl, tv_lcl, s_gate, cdry, i_lab, w_lab, r_half):
-    """Lift one parcel per column and integrate its buoyancy (the loop of ``moist._ascend``).
+    """Lift one parcel per column and integrate its buoyancy (the loop of ``columns.parcel.ascend``).
 
     Parameters are (nz,) ``s`` = ln p and ``pi`` = (p/1 Pa)^κ; (nz, M) ``tv_env``, of which
     parcel c rises through column ``env[c]``; (nz, n_labels) ``rows`` (parcel T_v on each
@@ -289,7 +289,7 @@ def regrid_parcels(s, sf, tf, qf, t, q, k0, k1):
 
 @numba.njit(**_JIT)
 def heights(s, tv, k0, k1, r_over_2g):
-    """Heights (nz, N) above the lowest valid level by the hypsometric equation (``moist._heights``).
+    """Heights (nz, N) above the lowest valid level by the hypsometric equation (``columns.parcel.heights``).
 
     dz = (R_d / 2g) (ln p_{k−1} − ln p_k) (T_v,k−1 + T_v,k): T_v linear in ln p in each layer;
     NaN outside the valid block k0 … k1 − 1 of each column.
@@ -308,7 +308,7 @@ def heights(s, tv, k0, k1, r_over_2g):
 
 @numba.njit(**_JIT)
 def at_log_pressure(s, f, tv, z, k0, k1, s_t, r_over_2g):
-    """A field and the height at ln p = ``s_t[c]`` in each column (``moist._at_log_pressure``).
+    """A field and the height at ln p = ``s_t[c]`` in each column (``columns.parcel.at_log_pressure``).
 
     Linear in ln p between the two valid levels around s_t; the height adds to the level below
     the trapezoid of T_v (exact for T_v linear in ln p).  NaN where s_t is not finite or outside

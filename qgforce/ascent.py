@@ -27,7 +27,7 @@ Method (one column at a time, vectorised over all columns):
   cross; a check counts any that would (round-off) and sorts them.
 * **Thermodynamics.**  Dry-adiabatic (θ and mixing ratio conserved) until saturated, then
   pseudo-adiabatic (condensate removed, q = q_s), with the LCL and the pseudo-adiabats of
-  :mod:`qgforce.moist`; descending air warms dry-adiabatically.
+  :mod:`qgforce.thermo`; descending air warms dry-adiabatically.
 * **Re-gridding.**  The displaced parcels are interpolated back onto the original levels,
   linearly in ln p.  Levels outside the span of the displaced parcels (below the lowest one when
   the lowest level rises, above the highest one when the top sinks) keep their original air: the
@@ -51,10 +51,29 @@ import numpy as np
 import xarray as xr
 
 from . import constants as C
-from . import moist as M
 from ._units import parse_units, to_si
+from .columns import (
+    COLUMN_OUTPUTS,
+    DEFAULT_MOIST_THRESHOLD,
+    DEFAULT_MOST_UNSTABLE_DEPTH,
+    LEVEL,
+    PARCELS,
+    ColumnOutput,
+    apply_columns,
+    ascend,
+    by_blocks,
+    compiled_kernels,
+    diagnose,
+    gather,
+    level_values,
+    make_profile,
+    most_unstable_level,
+    start_state,
+    thermo_inputs,
+)
 from .errors import GridError, InputDataError, MissingVariableError, OptionError, UnitsError
-from .moist import LEVEL, PARCELS
+from .thermo import formulas as F
+from .thermo.adiabats import adiabat_table
 
 __all__ = [
     "lift_columns",
@@ -229,7 +248,7 @@ def _advance(p, m, col, tau, om, plev, k0, k1, stop=None):
     f64 = np.ascontiguousarray
     stop = np.full(np.shape(p), np.nan) if stop is None else stop
     with np.errstate(all="ignore"):
-        return M._kernels().follow_parcels(f64(p, float), f64(m, np.intp), f64(col, np.intp), f64(tau, float),
+        return compiled_kernels().follow_parcels(f64(p, float), f64(m, np.intp), f64(col, np.intp), f64(tau, float),
                                            f64(om, float), f64(plev, float), f64(k0, np.intp), f64(k1, np.intp),
                                            f64(stop, float))
 
@@ -258,11 +277,11 @@ def _move(p, m, col, dur, flow: _Flow, plev, k0, k1, stop=None):
 def _cache_level_lcl(prof):
     """Keep the pseudo-adiabat label of every level's parcel (reused by repeated liftings)."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        tl = M._lcl_temperature(prof.t, prof.x)
-        sl = prof.s[:, None] + np.log(tl / prof.t) / _K
+        tl = F.lcl_temperature(prof.t, prof.x)
+        sl = F.lcl_log_pressure(prof.s[:, None], prof.t, tl)
     ok = np.isfinite(tl)
     lab = np.full(prof.t.shape, np.nan)
-    lab[ok] = M._adiabats().label(tl[ok], sl[ok])
+    lab[ok] = adiabat_table().label(tl[ok], sl[ok])
     prof.cache["level_lcl"] = (sl, lab)
 
 
@@ -280,7 +299,7 @@ def _lift_parcels(prof, flow: _Flow, dur):
     s = prof.s
     with np.errstate(all="ignore"):
         if len(flow.omega) == 1:
-            pend = M._kernels().follow_levels(np.ascontiguousarray(flow.omega[0], float), plev, prof.k0, prof.k1,
+            pend = compiled_kernels().follow_levels(np.ascontiguousarray(flow.omega[0], float), plev, prof.k0, prof.k1,
                                               np.ascontiguousarray(dur, float))
         else:
             idx = np.arange(nz)[:, None]
@@ -289,7 +308,7 @@ def _lift_parcels(prof, flow: _Flow, dur):
             pend[kk, cc] = _move(plev[kk], kk, cc, dur[cc], flow, plev, prof.k0, prof.k1)[0]
         ds = np.log(pend / plev[:, None])
         tf = prof.t * np.exp(_K * ds)
-        sat_all = (prof.x + ds) > M._es_exponent(tf)
+        sat_all = (prof.x + ds) > F.saturation_exponent(tf)
         sf = s[:, None] + ds
     qf = prof.q.copy()
     # saturated parcels: from their LCL along their pseudo-adiabat (condensate removed)
@@ -300,13 +319,13 @@ def _lift_parcels(prof, flow: _Flow, dur):
             lab = cached[1][kk, cc]
         else:
             t0, x0 = prof.t[kk, cc], prof.x[kk, cc]
-            tl = M._lcl_temperature(t0, x0)
+            tl = F.lcl_temperature(t0, x0)
             with np.errstate(divide="ignore", invalid="ignore"):
-                sl = s[kk] + np.log(tl / t0) / _K
-            lab = M._adiabats().label(tl, sl)
-        tm = np.minimum(M._adiabats().temperature(lab, sf[kk, cc]), tf[kk, cc])
+                sl = F.lcl_log_pressure(s[kk], t0, tl)
+            lab = adiabat_table().label(tl, sl)
+        tm = np.minimum(adiabat_table().temperature(lab, sf[kk, cc]), tf[kk, cc])
         tf[kk, cc] = tm
-        qf[kk, cc] = M._q_from_e(M._es(tm), np.exp(sf[kk, cc]))
+        qf[kk, cc] = F.saturation_specific_humidity(tm, np.exp(sf[kk, cc]))
     return pend, sf, tf, qf, sat_all
 
 
@@ -320,7 +339,7 @@ def _regrid(prof, sf, tf, qf):
     :func:`qgforce._compiled.regrid_parcels`.
     """
     with np.errstate(all="ignore"):
-        return M._kernels().regrid_parcels(prof.s, sf, tf, qf, prof.t, prof.q, prof.k0, prof.k1)
+        return compiled_kernels().regrid_parcels(prof.s, sf, tf, qf, prof.t, prof.q, prof.k0, prof.k1)
 
 
 def _lifted_profile(prof, flow, dur):
@@ -330,7 +349,7 @@ def _lifted_profile(prof, flow, dur):
     nz = prof.p.size
     idx = np.arange(nz)[:, None]
     block = (idx >= prof.k0) & (idx < prof.k1)
-    new = M._make_profile(prof.p, t_new, q_new, valid=block, copy=False)
+    new = make_profile(prof.p, t_new, q_new, valid=block, copy=False)
     return new, pf, tf, qf, sat, crossed
 
 
@@ -346,27 +365,27 @@ def _lift_kernel(t, q, om, *, levels, step_hours, interpolation, hours, mu_depth
         out = {}
         if unlifted:
             # the diagnostics of the unlifted columns from the same profile, when ω covers them
-            ref = M._make_profile(levels, tb, qb, copy=False)
+            ref = make_profile(levels, tb, qb, copy=False)
             prof = ref
             if not flow_ok.all():  # ω missing inside some valid block: lift only where it is given
                 idx = np.arange(ref.p.size)[:, None]
                 if not flow_ok[(idx >= ref.k0) & (idx < ref.k1)].all():
-                    prof = M._make_profile(levels, ref.t, ref.q, valid=flow_ok)
+                    prof = make_profile(levels, ref.t, ref.q, valid=flow_ok)
             prof.cache["clipped"] = ref.cache["clipped"]
-            diag = M._diagnose(ref, mu_depth, moist_threshold)
+            diag = diagnose(ref, mu_depth, moist_threshold)
             out.update({f"unlifted_{name}": diag[name] for name, _, _ in _CHANGES})
         else:
-            prof = M._make_profile(levels, tb, qb, valid=flow_ok, copy=False)
+            prof = make_profile(levels, tb, qb, valid=flow_ok, copy=False)
         flow = _make_flow(close_lowest_omega(ob, prof.k0, prof.k1, lowest_omega), step_hours, interpolation)
         dur = np.full(prof.n, hours * C.SECONDS_PER_HOUR)
         new, pf, tf, qf, sat, crossed = _lifted_profile(prof, flow, dur)
-        out.update(M._diagnose(new, mu_depth, moist_threshold))
+        out.update(diagnose(new, mu_depth, moist_threshold))
         out["clipped"] = prof.cache["clipped"]
         out.update(temperature=new.t, specific_humidity=new.q, displaced_pressure=pf / 100.0, saturated=sat,
                    crossed_parcels=crossed)
         return out
 
-    return M._by_blocks(block, t, q, om, threads=threads)
+    return by_blocks(block, t, q, om, threads=threads)
 
 
 # ======================================================================= hours to initiation
@@ -374,11 +393,11 @@ def _tracked_cin(prof, flow, kstart, dur, threshold):
     """f(D) = CIN + threshold of the tracked parcel after ``dur`` [s] of lifting (NaN without LFC)."""
     new, pf, tf, qf, _, _ = _lifted_profile(prof, flow, dur)
     n = prof.n
-    p0, t0, q0 = (M._gather(a, kstart, n) for a in (pf, tf, qf))
+    p0, t0, q0 = (gather(a, kstart, n) for a in (pf, tf, qf))
     s0 = np.log(p0)
     kfirst = np.searchsorted(-prof.s, -s0, side="right")
     kfirst = np.maximum(kfirst, new.k0)
-    return M._ascend(prof.s, new.tv, new.k1, s0, t0, q0, kfirst)["cin"] + threshold
+    return ascend(prof.s, new.tv, new.k1, s0, t0, q0, kfirst)["cin"] + threshold
 
 
 def _search(f, cols, f0, horizon, tol, scan=(0.25, 0.5, 0.75), max_iter=40):
@@ -435,14 +454,14 @@ def _search(f, cols, f0, horizon, tol, scan=(0.25, 0.5, 0.75), max_iter=40):
 def _hours_kernel(t, q, om, *, levels, step_hours, interpolation, horizon, parcel, threshold, tol, mu_depth,
                   lowest_omega, threads=1):
     def block(tb, qb, ob):
-        prof = M._make_profile(levels, tb, qb, valid=_valid_flow(tb, ob), copy=False)
+        prof = make_profile(levels, tb, qb, valid=_valid_flow(tb, ob), copy=False)
         flow = _make_flow(close_lowest_omega(ob, prof.k0, prof.k1, lowest_omega), step_hours, interpolation)
         n = prof.n
         has = prof.k0 < prof.k1
-        kstart = prof.k0 if parcel == "surface_based" else M._most_unstable_level(prof, mu_depth)
-        s0, t0, q0 = M._start_state(prof, kstart)
+        kstart = prof.k0 if parcel == "surface_based" else most_unstable_level(prof, mu_depth)
+        s0, t0, q0 = start_state(prof, kstart)
         s0 = np.where(has, s0, np.nan)
-        a0 = M._ascend(prof.s, prof.tv, prof.k1, s0, t0, q0, kstart + 1)
+        a0 = ascend(prof.s, prof.tv, prof.k1, s0, t0, q0, kstart + 1)
         horizon_s = horizon * C.SECONDS_PER_HOUR
         # hours to saturation: the parcel's own path to its LCL, in closed form layer by layer
         cols = np.flatnonzero(has)
@@ -482,7 +501,7 @@ def _hours_kernel(t, q, om, *, levels, step_hours, interpolation, horizon, parce
             "clipped": prof.cache["clipped"],
         }
 
-    return M._by_blocks(block, t, q, om, threads=threads)
+    return by_blocks(block, t, q, om, threads=threads)
 
 
 # ============================================================================ labelled layer
@@ -548,12 +567,12 @@ def _prepare(temperature, specific_humidity, omega_or_w, time_dim, interpolation
     lowest_omega = _lowest_closure(lowest_omega, omega_or_w)
     if interpolation not in TIME_INTERPOLATIONS:
         raise InputDataError(f"time_interpolation must be one of {TIME_INTERPOLATIONS}; found {interpolation!r}")
-    t, q = M._thermo_inputs(temperature, specific_humidity, what)
+    t, q = thermo_inputs(temperature, specific_humidity, what)
     if time_dim is not None:
         t = t.isel({time_dim: 0}, drop=True) if time_dim in t.dims else t
         q = q.isel({time_dim: 0}, drop=True) if time_dim in q.dims else q
     om = _omega_input(omega_or_w, t, q, time_dim)
-    levels = M._level_values(t)
+    levels = level_values(t)
     step_hours = None
     core = [[LEVEL], [LEVEL], [LEVEL]]
     if time_dim is not None:
@@ -564,13 +583,13 @@ def _prepare(temperature, specific_humidity, omega_or_w, time_dim, interpolation
 
 
 _LIFT_EXTRA = (
-    M._Out("temperature", "level", {"units": "K", "standard_name": "air_temperature", "long_name": "temperature of the lifted column"}),
-    M._Out("specific_humidity", "level", {"units": "kg kg-1", "standard_name": "specific_humidity",
+    ColumnOutput("temperature", "level", {"units": "K", "standard_name": "air_temperature", "long_name": "temperature of the lifted column"}),
+    ColumnOutput("specific_humidity", "level", {"units": "kg kg-1", "standard_name": "specific_humidity",
                                           "long_name": "specific humidity of the lifted column"}),
-    M._Out("displaced_pressure", "level", {"units": "hPa", "long_name": "pressure reached by the air that started at this level"}),
-    M._Out("saturated", "level", {"units": "1", "long_name": "the air of this level reached saturation "
+    ColumnOutput("displaced_pressure", "level", {"units": "hPa", "long_name": "pressure reached by the air that started at this level"}),
+    ColumnOutput("saturated", "level", {"units": "1", "long_name": "the air of this level reached saturation "
                                                           "(then rose pseudo-adiabatically)"}, bool),
-    M._Out("crossed_parcels", "column", {"units": "1", "long_name": "displaced parcels found out of order (sorted)"}, np.int64),
+    ColumnOutput("crossed_parcels", "column", {"units": "1", "long_name": "displaced parcels found out of order (sorted)"}, np.int64),
 )
 
 #: The changes reported by :func:`lift_columns`: (variable, its units, what a positive change means).
@@ -590,8 +609,8 @@ def lift_columns(
     *,
     time_dim: str | None = None,
     time_interpolation: str = "step",
-    most_unstable_depth: float = M.DEFAULT_MOST_UNSTABLE_DEPTH,
-    moist_threshold: float = M.DEFAULT_MOIST_THRESHOLD,
+    most_unstable_depth: float = DEFAULT_MOST_UNSTABLE_DEPTH,
+    moist_threshold: float = DEFAULT_MOIST_THRESHOLD,
     reference: xr.Dataset | None = None,
     lowest_omega: str = "auto",
 ) -> xr.Dataset:
@@ -680,11 +699,11 @@ def lift_columns(
         raise InputDataError(f"the duration must be a finite number of hours ≥ 0; found {hours}")
     t, q, om, levels, step_hours, core, lowest_omega = _prepare(
         temperature, specific_humidity, omega_or_w, time_dim, time_interpolation, "lift_columns", lowest_omega)
-    outputs = M._COLUMN_OUTPUTS + _LIFT_EXTRA
+    outputs = COLUMN_OUTPUTS + _LIFT_EXTRA
     if reference is None:  # the unlifted diagnostics in the same pass over the columns
-        by_name = {o.name: o for o in M._COLUMN_OUTPUTS}
-        outputs += tuple(M._Out(f"unlifted_{name}", by_name[name].kind, by_name[name].attrs) for name, _, _ in _CHANGES)
-    ds = M._apply_columns(
+        by_name = {o.name: o for o in COLUMN_OUTPUTS}
+        outputs += tuple(ColumnOutput(f"unlifted_{name}", by_name[name].kind, by_name[name].attrs) for name, _, _ in _CHANGES)
+    ds = apply_columns(
         _lift_kernel, [t, q, om], core, outputs,
         kwargs={"levels": levels, "step_hours": step_hours, "interpolation": time_interpolation, "hours": float(hours),
                 "mu_depth": float(most_unstable_depth), "moist_threshold": float(moist_threshold),
@@ -718,14 +737,14 @@ def lift_columns(
 
 
 _HOURS_OUTPUTS = (
-    M._Out("hours_to_saturation", "column",
+    ColumnOutput("hours_to_saturation", "column",
            {"units": "h", "long_name": "hours of the ascent until the parcel saturates (reaches its LCL)"}),
-    M._Out("hours_to_initiation", "column",
+    ColumnOutput("hours_to_initiation", "column",
            {"units": "h", "long_name": "hours of the ascent until the parcel's CIN is weaker than the threshold "
                                        "(or it is at its LFC)"}),
-    M._Out("parcel_pressure", "column", {"units": "hPa", "long_name": "pressure where the tracked parcel starts"}),
-    M._Out("initial_cape", "column", {"units": "J kg-1", "long_name": "CAPE of the tracked parcel before lifting"}),
-    M._Out("initial_cin", "column", {"units": "J kg-1", "long_name": "CIN of the tracked parcel before lifting"}),
+    ColumnOutput("parcel_pressure", "column", {"units": "hPa", "long_name": "pressure where the tracked parcel starts"}),
+    ColumnOutput("initial_cape", "column", {"units": "J kg-1", "long_name": "CAPE of the tracked parcel before lifting"}),
+    ColumnOutput("initial_cin", "column", {"units": "J kg-1", "long_name": "CIN of the tracked parcel before lifting"}),
 )
 
 
@@ -740,7 +759,7 @@ def hours_to_initiation(
     time_dim: str | None = None,
     time_interpolation: str = "step",
     tolerance_hours: float = 0.1,
-    most_unstable_depth: float = M.DEFAULT_MOST_UNSTABLE_DEPTH,
+    most_unstable_depth: float = DEFAULT_MOST_UNSTABLE_DEPTH,
     lowest_omega: str = "auto",
 ) -> xr.Dataset:
     """Hours of the diagnosed ascent until a low-level parcel saturates, and until it could start convection.
@@ -809,7 +828,7 @@ def hours_to_initiation(
     t, q, om, levels, step_hours, core, lowest_omega = _prepare(
         temperature, specific_humidity, omega_or_w, time_dim, time_interpolation, "hours_to_initiation",
         lowest_omega)
-    ds = M._apply_columns(
+    ds = apply_columns(
         _hours_kernel, [t, q, om], core, _HOURS_OUTPUTS,
         kwargs={"levels": levels, "step_hours": step_hours, "interpolation": time_interpolation,
                 "horizon": float(horizon_hours), "parcel": parcel, "threshold": float(cin_threshold),

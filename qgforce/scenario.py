@@ -49,11 +49,14 @@ from .constants import (
     DRY_AIR_GAS_CONSTANT,
     EARTH_ANGULAR_VELOCITY,
     EARTH_RADIUS,
-    EPSILON,
     GRAVITY,
     REFERENCE_PRESSURE,
 )
 from .errors import GridError, InputDataError
+from .thermo.formulas import (
+    saturation_vapour_pressure,
+    specific_humidity_from_vapour_pressure,
+)
 
 __all__ = [
     "CycloneScenario",
@@ -121,32 +124,6 @@ def _chord_squared(lon, lat, lon_centre, lat_centre):
         np.deg2rad(lon - lon_centre)
     )
     return 2.0 * EARTH_RADIUS**2 * (1.0 - cos_gamma)
-
-
-def _saturation_vapour_pressure(temperature):
-    """Saturation vapour pressure over liquid water [Pa] from temperature [K].
-
-    Notes
-    -----
-    Bolton (1980, eq. 10): e_s = 6.112 exp(17.67 T_c / (T_c + 243.5)) hPa, T_c in deg C.
-
-    References
-    ----------
-    Bolton, D., 1980: Mon. Wea. Rev., 108, 1046-1053.
-    """
-    celsius = temperature - 273.15
-    return 611.2 * np.exp(17.67 * celsius / (celsius + 243.5))
-
-
-def _specific_humidity(vapour_pressure, pressure):
-    """Specific humidity [kg kg-1] from vapour pressure and pressure [Pa].
-
-    Notes
-    -----
-    q = eps e / (p - (1 - eps) e), from the definitions of the mixing ratio
-    w = eps e / (p - e) and of q = w / (1 + w) (Wallace & Hobbs 2006, sec. 3.5.1).
-    """
-    return EPSILON * vapour_pressure / (pressure - (1.0 - EPSILON) * vapour_pressure)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -564,13 +541,11 @@ class CycloneScenario:
         Notes
         -----
         e = RH e_s(T), e_s = 6.112 exp(17.67 T_c/(T_c + 243.5)) hPa (Bolton 1980, eq. 10),
-        q = eps e / (p - (1 - eps) e).
+        q = eps e / (p - (1 - eps) e), both from :mod:`qgforce.thermo.formulas`.
         """
         temperature = self.temperature(lon, lat, pressure, hours)
-        vapour = self.relative_humidity(lon, lat, pressure, hours) * _saturation_vapour_pressure(
-            temperature
-        )
-        return _specific_humidity(vapour, np.asarray(pressure, dtype=float))
+        vapour = self.relative_humidity(lon, lat, pressure, hours) * saturation_vapour_pressure(temperature)
+        return specific_humidity_from_vapour_pressure(vapour, np.asarray(pressure, dtype=float))
 
 
 #: The scenario of the bundled demo file.
@@ -751,9 +726,7 @@ def demo_path():
         ``<repository>/data_demo/qgforce_demo.nc``, resolved relative to the installed
         ``qgforce`` package (it exists only in a source or editable install).
     """
-    import qgforce
-
-    return Path(qgforce.__file__).resolve().parent.parent / "data_demo" / "qgforce_demo.nc"
+    return Path(__file__).resolve().parent.parent / "data_demo" / "qgforce_demo.nc"
 
 
 def load_demo():

@@ -24,6 +24,7 @@ from scipy.special import lambertw
 
 from qgforce import constants as C
 from qgforce import moist as M
+from qgforce.columns import blocks as column_blocks
 from qgforce.errors import DataQualityWarning, GridError, InputDataError, MissingVariableError
 
 R, CP, G, EPS, KAPPA = C.DRY_AIR_GAS_CONSTANT, C.DRY_AIR_SPECIFIC_HEAT_P, C.GRAVITY, C.EPSILON, C.KAPPA
@@ -423,7 +424,7 @@ def test_blocks_on_threads_equal_one_thread_and_count_clipping_once(monkeypatch)
     qq = xr.DataArray(q, coords={"level": p}, dims=dims, attrs={"units": "kg kg-1"})
     runs = {}
     for threads in (1, 2):
-        monkeypatch.setattr(M, "_block_threads", lambda threads=threads: threads)
+        monkeypatch.setattr(column_blocks, "block_threads", lambda threads=threads: threads)
         with pytest.warns(DataQualityWarning, match="5 negative") as rec:
             runs[threads] = M.column_diagnostics(tt, qq)
         assert len([w for w in rec if issubclass(w.category, DataQualityWarning)]) == 1

@@ -13,10 +13,11 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from . import constants as C
-from .calculus import LEVEL, ddp
-from .errors import GridError
-from .grid import Grid
+from .. import constants as C
+from ..calculus import LEVEL, ddp
+from ..errors import GridError
+from ..grid import Grid
+from . import formulas as F
 
 __all__ = [
     "pressure",
@@ -62,7 +63,7 @@ def potential_temperature(temperature: xr.DataArray) -> xr.DataArray:
     >>> float(potential_temperature(t)[0])
     288.15
     """
-    theta = temperature * (C.REFERENCE_PRESSURE / pressure(temperature)) ** C.KAPPA
+    theta = F.potential_temperature(temperature, pressure(temperature))
     theta.name = "potential_temperature"
     theta.attrs = {"units": "K", "standard_name": "air_potential_temperature", "long_name": "potential temperature"}
     return theta
@@ -114,7 +115,7 @@ def virtual_temperature(temperature: xr.DataArray, specific_humidity: xr.DataArr
     if specific_humidity is None:
         tv = temperature.copy()
     else:
-        tv = temperature * (1.0 + specific_humidity * (1.0 / C.EPSILON - 1.0))
+        tv = F.virtual_temperature(temperature, specific_humidity)
     tv.name = "virtual_temperature"
     tv.attrs = {"units": "K", "standard_name": "virtual_temperature", "long_name": "virtual temperature"}
     return tv
@@ -122,7 +123,7 @@ def virtual_temperature(temperature: xr.DataArray, specific_humidity: xr.DataArr
 
 def density(temperature: xr.DataArray, specific_humidity: xr.DataArray | None = None) -> xr.DataArray:
     """Air density ρ = p / (R_d T_v) [kg m-3] (ideal gas law; Wallace & Hobbs 2006, eq. 3.16)."""
-    rho = pressure(temperature) / (C.DRY_AIR_GAS_CONSTANT * virtual_temperature(temperature, specific_humidity))
+    rho = F.density(pressure(temperature), virtual_temperature(temperature, specific_humidity))
     rho.name = "air_density"
     rho.attrs = {"units": "kg m-3", "standard_name": "air_density", "long_name": "air density"}
     return rho
