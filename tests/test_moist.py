@@ -204,6 +204,17 @@ def test_adiabat_table_matches_direct_integration():
     np.testing.assert_allclose(M.wet_bulb_potential_temperature(t, 1e5, q_sat(t, 1e5)), t, atol=2e-3)
 
 
+def test_wet_bulb_potential_temperature_is_nan_where_it_is_undefined():
+    # a missing input, or air with no vapour (no LCL), gives NaN beside the good values (it used to raise
+    # IndexError from the adiabat table); the good value is unchanged by its neighbours
+    t = np.array([290.0, np.nan, 280.0, 285.0])
+    p = np.array([9e4, 9e4, 8e4, np.nan])
+    q = np.array([0.01, 0.01, 0.0, 0.01])
+    out = np.asarray(M.wet_bulb_potential_temperature(t, p, q))
+    assert np.isnan(out[1:]).all()
+    assert out[0] == np.asarray(M.wet_bulb_potential_temperature(t[:1], p[:1], q[:1]))[0]
+
+
 # ----------------------------------------------------------------------- parcel diagnostics
 def analytic_case(nz, x1=0.25, x2=1.2, amp=25.0, t0=300.0, p0=1e5):
     """Dry parcel, B(x) = amp·x(x + x1)(x + x2) with x = ln(p/p0): CIN below x = −x1, CAPE up to −x2."""

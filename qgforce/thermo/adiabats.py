@@ -100,8 +100,9 @@ class PseudoAdiabatTable:
 
     def _row(self, s):
         u = (np.asarray(s, float) - self.s[0]) / self.S_STEP
-        j = np.clip(np.floor(u), 0, self.s.size - 2).astype(np.intp)
-        return j, np.clip(u - j, 0.0, 1.0)
+        bad = ~np.isfinite(u)  # a NaN (or infinite) ln p: row 0, weight NaN, so the result is NaN
+        j = np.clip(np.floor(np.where(bad, 0.0, u)), 0, self.s.size - 2).astype(np.intp)
+        return j, np.where(bad, np.nan, np.clip(u - j, 0.0, 1.0))
 
     def cell(self, label):
         """Column index i and weight w of θw values: T = (1 − w) T[:, i] + w T[:, i+1]."""

@@ -225,6 +225,7 @@ def wet_bulb_potential_temperature(temperature, pressure, specific_humidity):
     through it followed to 1000 hPa (Wallace & Hobbs 2006, §3.7): θw labels the pseudo-adiabats.
     Read from the table of pseudo-adiabats of :mod:`qgforce.thermo.adiabats` (RK4 of
     :func:`pseudo_adiabatic_lapse_rate`; agreement with direct integration to ~1e-3 K).
+    NaN where any input is missing and where the air holds no vapour at all (it has no LCL).
     """
 
     def kernel(t, p, q):
