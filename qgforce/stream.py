@@ -37,6 +37,7 @@ from __future__ import annotations
 import contextlib
 import datetime
 import os
+import warnings
 from collections.abc import Mapping
 from pathlib import Path
 
@@ -78,20 +79,19 @@ def compute_record(
     names: Mapping | None = None,
     engine: str | None = None,
     combine_dim: str | None = None,
+    on_bad_file: str = "raise",
     steps_per_chunk: int = 1,
     levels_per_chunk="auto",
-    on_bad_file: str = "raise",
-    forcing: bool = True,
-    omega: bool = True,
-    form: str = "qvector",
-    coriolis: str | None = None,
-    f0_latitude: float | None = None,
-    equator_mask: float | None = C.DEFAULT_EQUATOR_MASK_DEGREES,
-    smoothing=None,
+    forcing: bool | None = None,
     forcing_options: Mapping | None = None,
     omega_options: Mapping | None = None,
+    **options,
 ) -> xr.Dataset:
-    """The forcing terms and the inverted ω of a whole record, lazily, one time chunk at a time.
+    """The results of a compute job over a whole record, lazily, one time chunk at a time.
+
+    The same job as :func:`qgforce.jobs.compute.compute_to_netcdf` (the ``compute`` command): the
+    results are chosen with the same options (:func:`qgforce.jobs.compute.build_results`), read
+    from many files and chunked so that memory depends on the chunk, not on the record length.
 
     Parameters
     ----------
@@ -110,41 +110,37 @@ def compute_record(
         of levels; the vertical derivatives and the inversion gather whole columns as they need
         them.  ``"auto"`` (default): blocks of about 12 MiB in float64 (5 levels of a global
         0.5° grid; whole columns on small grids); ``None``: whole columns.
-    forcing, omega : bool
-        Which results to include: every forcing diagnostic
-        (:func:`qgforce.forcing.forcing_terms`), and ω by forcing term
-        (:func:`qgforce.omega.invert_omega`).
-    form : {"qvector", "traditional"}
-        Right-hand side of the inversion.
-    coriolis, f0_latitude, equator_mask, smoothing
-        Shared by the forcing terms and the inversion (see :func:`qgforce.forcing.forcing_terms`).
-        ``coriolis=None`` (default) is the library's one rule (:func:`qgforce.kinematics.default_coriolis`:
-        f0 at the cos-latitude-weighted mean latitude on a one-hemisphere domain spanning at most 60°
-        of latitude, local f otherwise; grids reaching into both hemispheres inverted per hemisphere).
-    forcing_options, omega_options : mapping, optional
-        Further keyword arguments of :func:`~qgforce.forcing.forcing_terms` (e.g.
-        ``temperature_wind``, ``levels``) and :func:`~qgforce.omega.invert_omega` (e.g.
-        ``domain``, ``sigma``, ``fill``, ``method``, ``boundary``).
+    **options
+        The options of :func:`qgforce.jobs.compute.build_results`: ``fields`` (default every
+        forcing term and ω by term, as the data allow), ``optional_fields``, ``levels``,
+        ``times``, ``region``, ``form``, ``omega`` (False: forcing terms only), ``smoothing``,
+        ``coriolis`` (``None``: the library's rule, :func:`qgforce.kinematics.default_coriolis`),
+        ``f0_latitude``, ``equator_mask``, ``below_ground``.
+    forcing, forcing_options, omega_options
+        Deprecated (removed in the next release): the keywords of earlier versions, which passed
+        keyword arguments to :func:`~qgforce.forcing.forcing_terms` and
+        :func:`~qgforce.omega.invert_omega` directly.  Given, they warn and the results are built
+        as before.  Use ``fields`` (e.g. the ω names only) in place of ``forcing=False``, and the
+        options above (``levels``, ``region``, ``below_ground``, ...) in place of the mappings.
 
     Returns
     -------
     xarray.Dataset
-        Lazy (dask-backed), one chunk per ``steps_per_chunk`` steps.  The forcing variables on
-        the whole grid and the ω variables on the inversion domain (outer-joined: NaN outside
-        it).  Attrs: ``Conventions``, ``title``, ``source`` (the input files), ``history``,
-        ``qgforce_version``, the choices shared by both parts, and ``qgforce_skipped_files``
-        when files were skipped.
+        Lazy (dask-backed), one chunk per ``steps_per_chunk`` steps: the results of
+        :func:`~qgforce.jobs.compute.build_results` with its attributes, plus ``Conventions``,
+        ``title``, ``source`` (the input files), ``history``, ``qgforce_version``, and
+        ``qgforce_skipped_files`` when files were skipped.
 
     Raises
     ------
-    InputDataError, MissingVariableError, UnitsError, GridError
-        From opening the files (every bad file named) and from the diagnostics' checks, which
-        look at coordinates only; errors that need the values (NaN in the right-hand side
-        without a fill policy, a Krylov solve that does not converge) surface when the result
-        is computed or written.
-    QGForceError
-        If neither ``forcing`` nor ``omega`` is requested, or ``steps_per_chunk`` or
-        ``levels_per_chunk`` is not a positive integer.
+    InputDataError, MissingVariableError, UnitsError, GridError, OptionError
+        From opening the files (every bad file named), from the choices and from the
+        diagnostics' checks, which look at coordinates only; errors that need the values (NaN in
+        the right-hand side without ``below_ground="mask"``, a Krylov solve that does not
+        converge) surface when the result is computed or written.
+    OptionError
+        If ``steps_per_chunk`` or ``levels_per_chunk`` is not a positive integer, or an option
+        is not one of :func:`~qgforce.jobs.compute.build_results`.
 
     Notes
     -----
@@ -153,17 +149,35 @@ def compute_record(
     Written with :func:`write_results`, peak memory is one chunk's working set times the number
     of chunks in flight (the threads, or worker threads), independent of the record length;
     ``.compute()`` of the whole result holds the whole record instead.
-    """
-    from .forcing import forcing_terms
-    from .omega import invert_omega
 
-    if not (forcing or omega):
-        raise QGForceError("compute_record: nothing to compute; set forcing=True, omega=True or both")
+    Examples
+    --------
+    >>> from qgforce.stream import compute_record, synthetic_record
+    >>> out = compute_record(synthetic_record(steps=2), fields="omega_total,q_vector_forcing", levels=[500])
+    >>> sorted(out.data_vars), out["omega_total"].chunks[0]
+    (['omega_total', 'q_vector_forcing'], (1, 1))
+    """
+    from .jobs.compute import build_results
+
+    legacy = {k: v for k, v in (("forcing", forcing), ("forcing_options", forcing_options),
+                                ("omega_options", omega_options)) if v is not None}
+    unknown = sorted(set(options) - _RECORD_OPTIONS)
+    if unknown:
+        raise OptionError(f"compute_record: unknown option(s) {unknown}; the options are those of "
+                          f"qgforce.jobs.compute.build_results: {', '.join(sorted(_RECORD_OPTIONS))}")
     if int(steps_per_chunk) != steps_per_chunk or steps_per_chunk < 1:
         raise OptionError(f"steps_per_chunk must be a positive integer; found {steps_per_chunk!r}")
     if levels_per_chunk not in ("auto", None) and (isinstance(levels_per_chunk, str) or int(levels_per_chunk) != levels_per_chunk
                                                    or levels_per_chunk < 1):
         raise OptionError(f"levels_per_chunk must be 'auto', None or a positive integer; found {levels_per_chunk!r}")
+    if legacy:
+        warnings.warn(
+            f"compute_record: {', '.join(legacy)} {'is' if len(legacy) == 1 else 'are'} deprecated and will be "
+            "removed in the next release; choose the results with the options of "
+            "qgforce.jobs.compute.build_results (fields=, levels=, region=, omega=, form=, below_ground=, ...)",
+            DeprecationWarning, stacklevel=2)
+        if forcing is not None and not (forcing or options.get("omega", True)):
+            raise QGForceError("compute_record: nothing to compute; set forcing=True, omega=True or both")
     ds = open_dataset(sources, names=names, chunks="auto", engine=engine, combine_dim=combine_dim,
                       on_bad_file=on_bad_file)
     first = ds["temperature"] if "temperature" in ds else next(iter(ds.data_vars.values()))
@@ -173,24 +187,47 @@ def compute_record(
     block = _level_block(first, levels_per_chunk)
     if block is not None:
         ds = ds.chunk({"level": block})
-    shared = dict(coriolis=coriolis, f0_latitude=f0_latitude, equator_mask=equator_mask, smoothing=smoothing)
-    parts = []
-    if forcing:
-        parts.append(forcing_terms(ds, **shared, **dict(forcing_options or {})))
-    if omega:
-        parts.append(invert_omega(ds, form=form, **shared, **dict(omega_options or {})))
-    out = xr.merge(parts, join="outer", compat="no_conflicts", combine_attrs="drop_conflicts")
+    if legacy:
+        out = _legacy_results(ds, forcing, forcing_options, omega_options, options)
+    else:
+        out = build_results(ds, **options)
     out.attrs = {
         "Conventions": "CF-1.8",
         "title": "quasi-geostrophic forcing diagnostics and omega",
         **{k: v for k, v in out.attrs.items() if k.startswith("qgforce_")},
         "qgforce_version": __version__,
         "source": _describe_sources(sources),
-        "history": history_line("compute_record", {"form": form, "coriolis": coriolis}),
+        "history": history_line("compute_record", {k: options[k] for k in ("fields", "form", "coriolis")
+                                                   if k in options}),
     }
     if "qgforce_skipped_files" in ds.attrs:
         out.attrs["qgforce_skipped_files"] = ds.attrs["qgforce_skipped_files"]
     return out
+
+
+#: The result options :func:`compute_record` passes on (those of ``build_results``).
+_RECORD_OPTIONS = frozenset({"fields", "optional_fields", "levels", "times", "region", "form", "omega", "smoothing",
+                             "coriolis", "f0_latitude", "equator_mask", "below_ground"})
+
+
+def _legacy_results(ds, forcing, forcing_options, omega_options, options) -> xr.Dataset:
+    """The results as earlier versions built them (``forcing=``, ``forcing_options=``, ``omega_options=``)."""
+    from .forcing import forcing_terms
+    from .omega import invert_omega
+
+    unused = sorted(set(options) - {"omega", "form", "coriolis", "f0_latitude", "equator_mask", "smoothing"})
+    if unused:
+        raise OptionError(f"compute_record: {unused} cannot be combined with the deprecated forcing=, "
+                          "forcing_options= or omega_options=; use the new options alone")
+    shared = dict(coriolis=options.get("coriolis"), f0_latitude=options.get("f0_latitude"),
+                  equator_mask=options.get("equator_mask", C.DEFAULT_EQUATOR_MASK_DEGREES),
+                  smoothing=options.get("smoothing"))
+    parts = []
+    if forcing is None or forcing:
+        parts.append(forcing_terms(ds, **shared, **dict(forcing_options or {})))
+    if options.get("omega", True):
+        parts.append(invert_omega(ds, form=options.get("form", "qvector"), **shared, **dict(omega_options or {})))
+    return xr.merge(parts, join="outer", compat="no_conflicts", combine_attrs="drop_conflicts")
 
 
 def _level_block(field: xr.DataArray, levels_per_chunk) -> int | None:

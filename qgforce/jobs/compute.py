@@ -15,6 +15,7 @@ from pathlib import Path
 
 import xarray as xr
 
+from .. import constants as C
 from .. import variables as V
 from ..errors import GridError, InputDataError, MissingVariableError, OmittedTermWarning, OptionError, QGForceError
 from ..output import cf
@@ -93,6 +94,7 @@ def build_results(
     smoothing=None,
     coriolis: str | None = None,
     f0_latitude: float | None = None,
+    equator_mask: float | None = C.DEFAULT_EQUATOR_MASK_DEGREES,
     below_ground: str | None = None,
 ) -> xr.Dataset:
     """The diagnostics of a job as one dataset (lazy on dask input), every choice checked first.
@@ -132,7 +134,7 @@ def build_results(
         Q-vector form, plus the traditional one with suffixed names.
     omega : bool
         Invert the omega equation (False: forcing terms only).
-    smoothing, coriolis, f0_latitude
+    smoothing, coriolis, f0_latitude, equator_mask
         Passed to the library (see :func:`qgforce.forcing.forcing_terms`); ``coriolis=None`` is the
         library's rule (:func:`qgforce.kinematics.default_coriolis`).
     below_ground : {None, "mask"}
@@ -165,7 +167,7 @@ def build_results(
     every = not wanted or wanted == ["all"]
     if "all" in wanted and not every:
         raise OptionError("fields: 'all' cannot be combined with other names")
-    plan = _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitude, below_ground)
+    plan = _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitude, below_ground, equator_mask)
     groups = _Groups(plan)
     groups.build("forcing")
     if omega:
@@ -207,7 +209,8 @@ class _Plan:
     below_ground: str | None = None
 
 
-def _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitude, below_ground) -> _Plan:
+def _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitude, below_ground,
+          equator_mask=C.DEFAULT_EQUATOR_MASK_DEGREES) -> _Plan:
     """Select the times, check levels and region, and fix the Coriolis choice of a region."""
     from ..grid import Grid
     from ..kinematics import default_coriolis, resolve_coriolis
@@ -224,7 +227,8 @@ def _plan(ds, levels, times, region, form, omega, smoothing, coriolis, f0_latitu
         domain = (*box["latitude"], *box["longitude"]) if "latitude" in box else dict(box)
     primary = ["qvector", "traditional"] if form == "both" else [form]
     return _Plan(ds=ds, levels_pa=chosen_levels, box=box,
-                 common=dict(coriolis=coriolis, f0_latitude=f0_latitude, smoothing=smoothing), domain=domain,
+                 common=dict(coriolis=coriolis, f0_latitude=f0_latitude, smoothing=smoothing,
+                             equator_mask=equator_mask), domain=domain,
                  form=form, omega=omega, coriolis=coriolis, primary_forms=primary,
                  other_forms=[f for f in ("qvector", "traditional") if f not in primary], below_ground=below_ground)
 
