@@ -1236,9 +1236,18 @@ def omega_rhs(ds, form="traditional", *, coriolis=None, f0_latitude=None, equato
     to discretisation error.
     """
     form = _check_choice(form, _FORMS, "form")
-    ctx = _prepare(ds, what=f"the {form} omega right-hand side", needs=("temperature", "geopotential"),
+    needs = ("temperature", "geopotential")
+    lazy = isinstance(ds, xr.Dataset) and any(n in ds and ds[n].chunks is not None for n in needs)
+    # dask input: the compiled pass of forcing_terms' default call (full-wind frontogenesis when u, v
+    # are there), so that a record asking for both shares the kernel's tasks
+    full = lazy and all(n in ds for n in ("u", "v"))
+    ctx = _prepare(ds, what=f"the {form} omega right-hand side", needs=needs + (("u", "v") if full else ()),
                    why=_Q_WHY, vertical=True, coriolis=coriolis, f0_latitude=f0_latitude, equator_mask=equator_mask,
                    smoothing=smoothing, levels=levels, grid=grid)
+    from ._forcing_engine import compiled_applies, compiled_context
+
+    if lazy and compiled_applies(ctx):
+        ctx = compiled_context(ctx, "geostrophic", "full" if full else "geostrophic")
     return _rhs(ctx, form)
 
 
@@ -1293,10 +1302,12 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
         default ``$QGFORCE_NUM_THREADS`` or every core (at most 8).
     method : {None, "numpy", "compiled"}
         ``"compiled"``: one compiled pass per level (:mod:`qgforce._forcing_engine`; lat–lon grids
-        with uniform longitudes, at least 4 × 4 points and numpy input), equal to the numpy path to
+        with uniform longitudes and at least 4 × 4 points; numpy input, or dask input with a
+        ``level`` dimension, then one kernel task per chunk, horizontal maps rechunked whole when
+        split, one thread per task unless ``workers`` is given), equal to the numpy path to
         round-off and 3–7× faster than it as measured (DEVELOPERS.md); ``"numpy"``: the labelled
-        numpy operators, which run on every grid and on dask input.  Default (``None``): the
-        compiled pass where it applies, else numpy.
+        numpy operators, which run on every grid.  Default (``None``): the compiled pass where it
+        applies, else numpy.
 
     Returns
     -------
