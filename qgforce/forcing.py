@@ -764,24 +764,40 @@ def _dataset(parts: dict, attrs: dict, grid: Grid | None = None, owned=()) -> xr
     The in-memory arrays of the variables named in ``owned`` (new arrays of this call, shared
     with nothing else) are masked in place; the others are copied.
     """
-    out = xr.Dataset(parts)
     if grid is not None and grid.pole_rows:
         keep = xr.DataArray(~np.isin(np.arange(grid.shape[0]), grid.pole_rows), dims=(grid.ydim,))
 
-        def mask(da):
+        def mask(name, da):
             if grid.ydim not in da.dims or da.dtype.kind != "f":
                 return da
-            if da.name in owned and isinstance(da.data, np.ndarray) and da.data.flags.writeable:
+            if isinstance(da.data, np.ndarray):
+                if not (name in owned and da.data.flags.writeable):
+                    da = da.copy(data=da.data.copy())  # a plain copy: cheaper than where() over the field
                 da.data[(slice(None),) * da.dims.index(grid.ydim) + (list(grid.pole_rows),)] = np.nan
                 return da
-            return da.where(keep)
+            return da.where(keep).assign_attrs(da.attrs)
 
-        out = out.map(mask, keep_attrs=True)
+        parts = {name: mask(name, da) for name, da in parts.items()}
         warnings.warn(f"{len(grid.pole_rows)} pole row(s) of the grid are masked (NaN) in the forcing terms: the "
                       f"derivatives there are not defined on the sphere's grid", PoleRowWarning, stacklevel=3)
         attrs = {**attrs, "qgforce_pole_rows": "masked (NaN)"}
+    out = _assemble(parts)
     out.attrs = attrs
     return out
+
+
+def _assemble(parts: dict) -> xr.Dataset:
+    """``xr.Dataset(parts)``, built from the variables and one set of coordinates when the parts'
+    coordinates agree (they come from one call): the alignment of every part is then skipped,
+    which costs a few centred-difference passes on a 25 x 181 x 360 grid."""
+    coords = {}
+    for da in parts.values():
+        for name, c in da.coords.items():
+            seen = coords.setdefault(name, c.variable)
+            if seen is not c.variable and (seen.dims != c.dims or seen.dtype != c.dtype
+                                           or not np.array_equal(seen.values, c.values)):
+                return xr.Dataset(parts)
+    return xr.Dataset({name: da.variable for name, da in parts.items()}, coords=coords)
 
 
 # ============================================================================ public: advection
