@@ -183,10 +183,19 @@ def compiled_applies(ctx) -> bool:
     return _supported(ctx) and (not _lazy(ctx) or LEVEL in ctx.T.dims)
 
 
+def _read_only(a: np.ndarray) -> np.ndarray:
+    """A read-only view: numba compiles one specialisation per writeability, and dask hands out
+    read-only blocks, so every kernel input is passed read-only (one compiled signature)."""
+    v = a.view()
+    v.flags.writeable = False
+    return v
+
+
 def _slabs(a: np.ndarray) -> np.ndarray:
-    """(n_slab, ny, nx) float64 C-contiguous view (or copy) of a block whose last two axes are the grid's."""
+    """(n_slab, ny, nx) read-only float64 C-contiguous view (or copy) of a block whose last two axes
+    are the grid's."""
     a = np.ascontiguousarray(a, dtype=np.float64)
-    return a.reshape((-1,) + a.shape[-2:])
+    return _read_only(a.reshape((-1,) + a.shape[-2:]))
 
 
 class _LevelPass:
@@ -244,6 +253,7 @@ class _LevelPass:
         p = np.broadcast_to(np.asarray(p, dtype=np.float64), shape[:-2]).reshape(-1)
         k_rp = -C.DRY_AIR_GAS_CONSTANT / p
         c_theta = (C.REFERENCE_PRESSURE / p) ** C.KAPPA
+        fx, fy = _read_only(fx), _read_only(fy)
         arrays = self.allocate(shape, out)
         flat = {k: a.reshape((n, ny, nx)) for k, a in arrays.items()}
         direct = self.store == np.float64
