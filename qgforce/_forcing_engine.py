@@ -4,7 +4,10 @@
 (``method="compiled"``, and the default wherever :func:`compiled_applies`).  On a lat–lon grid with uniform longitudes and at least 4 × 4 points,
 with numpy input, it computes every horizontal output with
 :func:`qgforce._forcing_kernels.latlon_level`, one level per kernel call, levels shared among
-threads (the kernel runs without the GIL), into preallocated arrays, and returns the call's
+threads (the kernel runs without the GIL), into preallocated arrays; with dask input (a ``level``
+dimension needed), one task per chunk runs the same levels loop, every horizontal map made whole
+first, and each output is a dask array reading that task's result (deterministic task names, so
+:func:`qgforce.forcing.omega_rhs` on the same input shares the tasks), and returns the call's
 context with those results in place of its cached intermediates: the labelling builders and the
 vertical terms (∂/∂p over the levels, a second pass) of :mod:`qgforce.forcing` then run
 unchanged.  Other input raises :class:`~qgforce.errors.OptionError` naming what is supported.
@@ -16,6 +19,7 @@ so the compiled results agree with it to round-off (``tests/test_forcing_kernels
 
 from __future__ import annotations
 
+import operator
 import os
 from concurrent.futures import ThreadPoolExecutor
 
@@ -161,19 +165,159 @@ def _geometry(grid, cor) -> tuple:
     return (xw, float(inv2hx), yidx, yw, ymode, float(inv2hy), R, *csr, *pole_args, *caps)
 
 
-def compiled_applies(ctx) -> bool:
-    """Whether the compiled pass runs on this call: a lat–lon grid with uniform longitudes, at least
-    4 × 4 points, numpy (not dask) input with the grid's dims last."""
+def _supported(ctx) -> bool:
+    """Whether the kernel handles this grid: lat–lon, uniform longitudes, ≥ 4 × 4 points, grid dims last."""
     g = ctx.grid
     return (g.kind == "latlon" and min(g.shape) >= 4 and K.is_uniform(np.asarray(g.xi))
-            and all(da.chunks is None for da in ctx.fields.values())
             and tuple(ctx.T.dims[-2:]) == tuple(g.dims))
 
 
-def _slabs(da: xr.DataArray, dims) -> np.ndarray:
-    """(n_slab, ny, nx) float64 C-contiguous view (or copy) of a field in the dims of the output."""
-    a = np.ascontiguousarray(da.transpose(*dims).values, dtype=np.float64)
-    return a.reshape((-1,) + a.shape[-2:])
+def _lazy(ctx) -> bool:
+    return any(da.chunks is not None for da in ctx.fields.values())
+
+
+def compiled_applies(ctx) -> bool:
+    """Whether the compiled pass runs on this call: a lat–lon grid with uniform longitudes, at least
+    4 × 4 points, the grid's dims last, and numpy input, or dask input with a ``level`` dimension
+    (one kernel call per chunk, the horizontal map made whole in each chunk)."""
+    return _supported(ctx) and (not _lazy(ctx) or LEVEL in ctx.T.dims)
+
+
+def _read_only(a: np.ndarray) -> np.ndarray:
+    """A read-only view: numba compiles one specialisation per writeability, and dask hands out
+    read-only blocks, so every kernel input is passed read-only (one compiled signature)."""
+    v = a.view()
+    v.flags.writeable = False
+    return v
+
+
+def _slabs(a: np.ndarray) -> np.ndarray:
+    """(n_slab, ny, nx) read-only float64 C-contiguous view (or copy) of a block whose last two axes
+    are the grid's."""
+    a = np.ascontiguousarray(a, dtype=np.float64)
+    return _read_only(a.reshape((-1,) + a.shape[-2:]))
+
+
+class _LevelPass:
+    """The kernel over the slabs of one block: (…, level, y, x) arrays in, a dict of outputs out.
+
+    Holds only the grid-derived arguments (stencil weights, metric factors, ∇f), so one instance
+    serves every block of a dask graph.
+    """
+
+    def __init__(self, ctx, temperature_wind: str, frontogenesis_wind: str, store: np.dtype, threads: int):
+        grid, cor = ctx.grid, ctx.cor
+        self.shape2 = grid.shape
+        self.full_t, self.full_f = temperature_wind == "full", frontogenesis_wind == "full"
+        self.local, self.periodic, self.f0 = cor.kind == "local", bool(grid.periodic_x), float(cor.f0)
+        self.geometry = _geometry(grid, cor)
+        self.store, self.threads = store, threads
+
+    def token(self, *arrays) -> str:
+        """Deterministic name of the kernel's dask task on these inputs (equal calls share their tasks)."""
+        from dask.base import tokenize
+
+        return tokenize(*arrays, self.geometry, self.store.name, self.full_t, self.full_f, self.local,
+                        self.periodic, None if self.local else self.f0, self.threads)  # f0 unused with local f
+
+    def fx_fy(self, ctx):
+        ny, nx = self.shape2
+        return tuple(np.ascontiguousarray(np.broadcast_to(g.values, (ny, nx)), dtype=np.float64)
+                     for g in gradient(ctx.coriolis_local, ctx.grid))
+
+    def allocate(self, shape, out=None) -> dict:
+        out = dict(out or {})
+        arrays = {}
+        for name in OUTPUT_NAMES:
+            want = np.dtype(np.float64) if name in _FLOAT64_ALWAYS else self.store
+            given = out.get(name)
+            if given is not None and name not in _FLOAT64_ALWAYS:
+                if given.shape != shape or given.dtype != self.store or not given.flags.c_contiguous:
+                    raise OptionError(f"out[{name!r}] must be a C-contiguous {self.store.name} array of shape "
+                                      f"{shape}; found {given.dtype.name} {given.shape}")
+                arrays[name] = given
+            else:
+                arrays[name] = np.empty(shape, dtype=want)
+        return arrays
+
+    def __call__(self, t, phi, u, v, p, fx, fy, out=None) -> dict:
+        """Outputs of one block; ``p`` [Pa] broadcastable to the block's leading axes; ``u``, ``v``
+        None when no full wind is used."""
+        from ._forcing_kernels import latlon_level
+
+        shape = t.shape
+        ny, nx = self.shape2
+        T, PHI = _slabs(t), _slabs(phi)
+        U, V = (_slabs(u), _slabs(v)) if (self.full_t or self.full_f) else (T, T)
+        n = T.shape[0]
+        p = np.broadcast_to(np.asarray(p, dtype=np.float64), shape[:-2]).reshape(-1)
+        k_rp = -C.DRY_AIR_GAS_CONSTANT / p
+        c_theta = (C.REFERENCE_PRESSURE / p) ** C.KAPPA
+        fx, fy = _read_only(fx), _read_only(fy)
+        arrays = self.allocate(shape, out)
+        flat = {k: a.reshape((n, ny, nx)) for k, a in arrays.items()}
+        direct = self.store == np.float64
+        threads = max(1, min(self.threads, n))
+
+        def work(first: int, last: int) -> None:
+            zeta, at = np.empty((ny, nx)), np.empty((ny, nx))
+            spare = None if direct else np.empty((5, ny, nx))  # float64 work arrays of float32 outputs
+            for s in range(first, last):
+                o = tuple(flat[k][s] for k in OUTPUT_NAMES)
+                ug, qx, qy, qnx, qny = (o[17], o[3], o[4], o[5], o[6]) if direct else spare
+                latlon_level(T[s], PHI[s], U[s], V[s], fx, fy, self.full_t, self.full_f, self.local, self.periodic,
+                             *self.geometry, float(k_rp[s]), float(c_theta[s]), self.f0,
+                             ug, o[18], zeta, at, qx, qy, qnx, qny, o, not direct)
+
+        bounds = np.linspace(0, n, threads + 1).astype(int)
+        if threads == 1:
+            work(0, n)
+        else:
+            with ThreadPoolExecutor(threads) as pool:
+                list(pool.map(work, bounds[:-1], bounds[1:]))
+        return arrays
+
+
+def _lazy_arrays(ctx, kernel: _LevelPass, fx, fy) -> dict:
+    """One kernel call per dask chunk: every horizontal map made whole (rechunked if split), the
+    inputs' chunks unified, the outputs dask arrays with the chunks of the temperature."""
+    import dask.array as da
+
+    ref = ctx.T
+    dims = ref.dims
+    names = ["temperature", "geopotential"] + (["u", "v"] if (kernel.full_t or kernel.full_f) else [])
+    whole = {d: -1 for d in ctx.grid.dims}
+    fields = [ctx.fields[n].transpose(*dims) for n in names]
+    lazy = next(f for f in fields if f.chunks is not None).chunk(whole)
+    chunks = lazy.chunks  # the temperature's chunks when it is lazy, horizontal maps whole
+    arrays = [f.data.rechunk(chunks) if f.chunks is not None else da.from_array(f.values, chunks=chunks)
+              for f in fields]
+    level_axis = dims.index(LEVEL)
+    p = da.from_array(np.asarray(ref[LEVEL].values, dtype=np.float64), chunks=(chunks[level_axis],))
+    grid_fx = da.from_array(fx, chunks=-1)
+    grid_fy = da.from_array(fy, chunks=-1)
+    ind = tuple(range(len(dims)))
+    ydim, xdim = ind[-2:]
+    trail = (None,) * (len(dims) - 3 - level_axis)  # leading axes after the level axis
+
+    def block(*xs):
+        t, phi, *wind, p_block, bfx, bfy = xs
+        u, v = wind if wind else (None, None)
+        return kernel(t, phi, u, v, p_block[(slice(None),) + trail], bfx, bfy)
+
+    args = []
+    for a in arrays:
+        args += [a, ind]
+    args += [p, (ind[level_axis],), grid_fx, (ydim, xdim), grid_fy, (ydim, xdim)]
+    meta = np.empty((0,) * len(dims))
+    both = da.blockwise(block, ind, *args, dtype=np.float64, meta=meta, concatenate=True,
+                        name=f"qgforce-forcing-kernel-{kernel.token(*arrays, grid_fx, grid_fy, p)}")
+    out = {}
+    for name in OUTPUT_NAMES:
+        dt = np.dtype(np.float64) if name in _FLOAT64_ALWAYS else kernel.store
+        out[name] = both.map_blocks(operator.getitem, name, dtype=dt, meta=np.empty((0,) * len(dims), dtype=dt),
+                                    name=f"qgforce-{name}-{both.name[-32:]}")
+    return out
 
 
 def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=None, out=None, workers=None):
@@ -188,9 +332,10 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
         Storage of the outputs (always computed in float64).
     out : mapping of name -> ndarray, optional
         Preallocated outputs (shape of the input fields, dims ``(..., level, y, x)``, of the
-        storage dtype, C-contiguous) for any of :data:`OUTPUT_NAMES`.
+        storage dtype, C-contiguous) for any of :data:`OUTPUT_NAMES`; numpy input only.
     workers : int, optional
-        Threads (see :func:`resolve_threads`).
+        Threads of one kernel call (see :func:`resolve_threads`).  Under dask the default is one
+        thread per chunk (dask's scheduler runs the chunks in parallel).
 
     Returns
     -------
@@ -199,70 +344,35 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
     Raises
     ------
     OptionError
-        For a projected grid, non-uniform longitudes, fewer than 4 × 4 points or dask input.
+        For a projected grid, non-uniform longitudes, fewer than 4 × 4 points, or dask input
+        without a ``level`` dimension.
     """
     store = resolve_dtype(dtype)
-    threads = resolve_threads(workers)
+    lazy = _lazy(ctx)
+    threads = 1 if (lazy and workers is None) else resolve_threads(workers)
     if not compiled_applies(ctx):
         raise OptionError(
             f"method='compiled' runs on lat-lon grids with uniform longitudes, at least 4 x 4 points and "
-            f"in-memory (numpy) input; this call has a {ctx.grid.kind} grid of {ctx.grid.shape[0]} x "
-            f"{ctx.grid.shape[1]} points{' and dask input' if any(da.chunks is not None for da in ctx.fields.values()) else ''}. "
+            f"numpy input, or dask input with a {LEVEL!r} dimension; this call has a {ctx.grid.kind} grid of "
+            f"{ctx.grid.shape[0]} x {ctx.grid.shape[1]} points{' and dask input without one' if lazy else ''}. "
             f"Use method='numpy' (or leave method unset to choose automatically), which runs everywhere.")
-    from ._forcing_kernels import latlon_level
-
+    if lazy and out:
+        raise OptionError("out= takes numpy arrays filled in place, which dask input cannot do; leave out unset "
+                          "for dask input (the outputs are then dask arrays), or load the input first")
     grid, cor = ctx.grid, ctx.cor
     ref = ctx.T
     dims = ref.dims
-    shape = ref.shape
-    ny, nx = grid.shape
-    full_t, full_f = temperature_wind == "full", frontogenesis_wind == "full"
-    T, PHI = _slabs(ctx.T, dims), _slabs(ctx.phi, dims)
-    if full_t or full_f:
-        u, v = ctx.full
-        U, V = _slabs(u, dims), _slabs(v, dims)
+    kernel = _LevelPass(ctx, temperature_wind, frontogenesis_wind, store, threads)
+    fx, fy = kernel.fx_fy(ctx)
+    if lazy:
+        arrays = _lazy_arrays(ctx, kernel, fx, fy)
     else:
-        U = V = T
-    n = T.shape[0]
-    p = np.broadcast_to(np.asarray(ref[LEVEL].values, dtype=np.float64)[
-        (None,) * (dims.index(LEVEL)) + (slice(None),)], shape[:-2]).reshape(-1)
-    k_rp = -C.DRY_AIR_GAS_CONSTANT / p
-    c_theta = (C.REFERENCE_PRESSURE / p) ** C.KAPPA
-    fx, fy = (np.ascontiguousarray(np.broadcast_to(g.values, (ny, nx)), dtype=np.float64)
-              for g in gradient(ctx.coriolis_local, grid))
-    geometry = _geometry(grid, cor)
-    out = dict(out or {})
-    arrays = {}
-    for name in OUTPUT_NAMES:
-        want = np.dtype(np.float64) if name in _FLOAT64_ALWAYS else store
-        given = out.get(name)
-        if given is not None and name not in _FLOAT64_ALWAYS:
-            if given.shape != shape or given.dtype != store or not given.flags.c_contiguous:
-                raise OptionError(f"out[{name!r}] must be a C-contiguous {store.name} array of shape {shape}; "
-                                  f"found {given.dtype.name} {given.shape}")
-            arrays[name] = given
-        else:
-            arrays[name] = np.empty(shape, dtype=want)
-    flat = {k: a.reshape((n, ny, nx)) for k, a in arrays.items()}
-    direct = store == np.float64
-    threads = max(1, min(threads, n))
-
-    def work(first: int, last: int) -> None:
-        zeta, at = np.empty((ny, nx)), np.empty((ny, nx))
-        spare = None if direct else np.empty((5, ny, nx))  # float64 work arrays of float32 outputs
-        for s in range(first, last):
-            o = tuple(flat[k][s] for k in OUTPUT_NAMES)
-            ug, qx, qy, qnx, qny = (o[17], o[3], o[4], o[5], o[6]) if direct else spare
-            latlon_level(T[s], PHI[s], U[s], V[s], fx, fy, full_t, full_f, cor.kind == "local", grid.periodic_x,
-                         *geometry, float(k_rp[s]), float(c_theta[s]), float(cor.f0),
-                         ug, o[18], zeta, at, qx, qy, qnx, qny, o, not direct)
-
-    bounds = np.linspace(0, n, threads + 1).astype(int)
-    if threads == 1:
-        work(0, n)
-    else:
-        with ThreadPoolExecutor(threads) as pool:
-            list(pool.map(work, bounds[:-1], bounds[1:]))
+        wind = [ctx.fields[n].transpose(*dims).values for n in ("u", "v")] if (kernel.full_t or kernel.full_f) \
+            else [None, None]
+        p = np.asarray(ref[LEVEL].values, dtype=np.float64)
+        if LEVEL in dims:
+            p = p[(slice(None),) + (None,) * (len(dims) - 3 - dims.index(LEVEL))]
+        arrays = kernel(ref.values, ctx.phi.transpose(*dims).values, *wind, p, fx, fy, out=out)
     das = {k: xr.DataArray(a, dims=dims, coords=ref.coords) for k, a in arrays.items()}
     ctx._temperature_advection[temperature_wind] = das["temperature_advection"]
     # the labels of kinematics.geostrophic_wind on lat-lon grids

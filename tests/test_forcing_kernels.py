@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import warnings
 
+import dask
 import numpy as np
 import pytest
 import xarray as xr
@@ -144,7 +145,7 @@ def test_default_method_is_compiled_where_it_applies():
                                     forcing.forcing_terms(ds, f0_latitude=45.0, method="compiled"))
         case = cases.get_case("deformation_q_vector")  # a projected grid: the numpy path
         xr.testing.assert_identical(forcing.forcing_terms(case.ds), forcing.forcing_terms(case.ds, method="numpy"))
-        lazy = _wave_dataset(**DATELINE).chunk({"level": 2})  # dask input: the numpy path, still lazy
+        lazy = _wave_dataset(**DATELINE).chunk({"level": 2})  # dask input: still lazy
         assert forcing.forcing_terms(lazy).q_vector_forcing.chunks is not None
 
 
@@ -154,10 +155,69 @@ def test_projected_grid_asks_for_the_numpy_method():
         forcing.forcing_terms(case.ds, method="compiled")
 
 
-def test_dask_input_asks_for_the_numpy_method():
+def _refuse_compute(*args, **kwargs):
+    raise AssertionError("a dask graph was computed while it was being built")
+
+
+def _two_steps(**grid):
+    ds = _wave_dataset(**grid, nz=6)
+    return xr.concat([ds, (ds * 1.01).assign_coords(time=[1])], "time")
+
+
+@pytest.mark.parametrize("chunks", [{"time": 1}, {"time": 1, "level": 2}, {"level": 4},
+                                    {"latitude": 7}, {"longitude": 5, "level": 3}],
+                         ids=["time", "time-level", "uneven-levels", "split-latitude", "split-longitude"])
+@pytest.mark.parametrize("grid", ["dateline", "global"])
+def test_dask_chunks_run_the_kernel_per_chunk(chunks, grid):
+    """Dask input takes the compiled pass, one kernel task per chunk, lazily; a chunking that splits
+    the horizontal map is made whole first; every output equals the numpy path on the loaded data."""
+    ds = _two_steps(**(DATELINE if grid == "dateline" else GLOBAL_POLES))
+    kw = dict(coriolis="local") if grid == "dateline" else dict(f0_latitude=45.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ref = forcing.forcing_terms(ds, method="numpy", **kw)
+        with dask.config.set(scheduler=_refuse_compute):
+            lazy = forcing.forcing_terms(ds.chunk(chunks), **kw)
+    graph = dict(lazy.__dask_graph__())
+    kernel_tasks = [k for k in graph if isinstance(k, tuple) and k[0].startswith("qgforce-forcing-kernel-")]
+    levels = -(-ds.sizes["level"] // chunks.get("level", ds.sizes["level"]))
+    steps = 2 if "time" in chunks else 1
+    assert len(kernel_tasks) == levels * steps
+    assert lazy.q_vector_forcing.chunks is not None
+    new = lazy.compute()
+    for name in ref.data_vars:
+        a, b = new[name].values, ref[name].values
+        assert new[name].attrs == ref[name].attrs, name
+        np.testing.assert_array_equal(np.isnan(a), np.isnan(b), err_msg=name)
+        assert np.nanmax(np.abs(a - b)) <= 1e-12 * np.nanmax(np.abs(b)), name
+    assert new.attrs == ref.attrs
+
+
+def test_dask_float32_and_shared_tasks():
+    """float32 storage under dask equals the numpy-input compiled pass; omega_rhs on the same dask
+    input reuses the forcing call's kernel tasks (one per chunk in the merged graph)."""
+    ds = _wave_dataset(**DATELINE, nz=6)
+    lazy = ds.chunk({"level": 3})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        eager = forcing.forcing_terms(ds, dtype="float32")
+        terms = forcing.forcing_terms(lazy, dtype="float32")
+        xr.testing.assert_identical(terms.compute(), eager)
+        both = xr.merge([forcing.forcing_terms(lazy), forcing.omega_rhs(lazy).rename(
+            differential_vorticity_advection="dva", thermal_advection_term="tat")], compat="override")
+        rhs = forcing.omega_rhs(lazy).compute()
+        ref = forcing.omega_rhs(ds)
+    graph = dict(both.__dask_graph__())
+    assert len([k for k in graph if isinstance(k, tuple) and k[0].startswith("qgforce-forcing-kernel-")]) == 2
+    for name in ref.data_vars:
+        b = ref[name].values
+        assert np.nanmax(np.abs(rhs[name].values - b)) <= 1e-12 * np.nanmax(np.abs(b)), name
+
+
+def test_dask_input_refuses_out():
     ds = _wave_dataset(**DATELINE).chunk({"level": 2})
-    with pytest.raises(OptionError, match="dask input"):
-        forcing.forcing_terms(ds, method="compiled")
+    with pytest.raises(OptionError, match="out= takes numpy arrays"):
+        forcing.forcing_terms(ds, method="compiled", out={"frontogenesis": np.empty(3)})
 
 
 def test_kernel_arctangent_within_one_ulp_of_the_c_library():
