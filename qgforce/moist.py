@@ -406,29 +406,10 @@ def _make_profile(p, t, q, valid=None, copy=True) -> _Profile:
     ok = np.isfinite(t) & np.isfinite(q) & (t > 0)
     if valid is not None:
         ok &= valid
-    k0, k1, block = _valid_block(ok)
-    if not block.all():
-        t[~block] = np.nan
-        q[~block] = np.nan
-    neg = q < 0
-    n_neg = int(np.count_nonzero(neg))
-    if n_neg:
-        q[neg] = 0.0
-    # level by level: rows stay small (whole-block temporaries are slow to allocate)
-    x = np.empty_like(t)
-    tv = np.empty_like(t)
-    n_sup = 0
-    with np.errstate(divide="ignore", invalid="ignore"):
-        for k in range(p.size):
-            tk, qk, xk = t[k], q[k], x[k]
-            np.log(_vapour(p[k], qk) / _ES0, out=xk)
-            a = _es_exponent(tk)
-            sup = xk > a
-            if sup.any():
-                n_sup += int(np.count_nonzero(xk > a + 1e-9))
-                qk[sup] = _q_from_e(_es(tk[sup]), p[k])
-                xk[sup] = a[sup]
-            np.multiply(tk, 1.0 + qk * (1.0 / _EPS - 1.0), out=tv[k])
+    k0, k1, _ = _valid_block(ok)
+    # NaN outside the block, clipping, x and T_v level by level: qgforce._compiled.profile_levels
+    x, tv, n_neg, n_sup = _kernels().profile_levels(p, t, q, k0, k1, _ES0, _ES_A, C.ZERO_CELSIUS, _ES_POLE, _ES_COLD,
+                                                    _EPS)
     prof = _Profile(p, t, q, x, tv, k0, k1)
     prof.cache["clipped"] = (n_neg, n_sup)
     return prof
@@ -642,21 +623,8 @@ def _moist_layer_depth(prof: _Profile, threshold):
 
 def _most_unstable_level(prof: _Profile, depth):
     """Index of the level of largest θe within ``depth`` [Pa] above the lowest valid level."""
-    nz, n = prof.t.shape
-    p_base = prof.p[np.clip(prof.k0, 0, nz - 1)]
-    best = np.full(n, -np.inf)
-    kbest = prof.k0.copy()
-    for k in range(int(prof.k0.min(initial=nz)), nz):
-        act = (k >= prof.k0) & (k < prof.k1) & (prof.p[k] >= p_base - depth)
-        if not act.any():
-            if (k > prof.k0).all():
-                break
-            continue
-        lte = _log_theta_e(prof.t[k], prof.p[k], prof.q[k], prof.x[k])
-        better = act & (lte > best)
-        best[better] = lte[better]
-        kbest[better] = k
-    return kbest
+    return _kernels().most_unstable_level(prof.p, prof.t, prof.q, prof.x, prof.k0, prof.k1, float(depth), _ES0, _EPS,
+                                          _BOLTON_KAPPA)[0]
 
 
 def _start_state(prof: _Profile, k):
