@@ -21,7 +21,7 @@ import numba
 import numpy as np
 
 __all__ = ["at_log_pressure", "buoyancy_integrals", "heights", "follow_parcels", "follow_levels", "regrid_parcels",
-           "profile_levels", "most_unstable_level", "dry_parcels"]
+           "profile_levels", "most_unstable_level", "dry_parcels", "moist_layer_depth"]
 
 _JIT = dict(nogil=True, cache=True)
 #: the kernels below written for whole profiles: a division by zero gives ±inf or NaN as numpy's
@@ -429,7 +429,7 @@ def most_unstable_level(p, t, q, x, k0, k1, depth, es0, eps, bolton_kappa):
     (−inf in a column without a level).
 
     ln θe by Bolton (1980) eqs. 39, 22, 24, mirroring ``moist._log_theta_e`` in the same order of
-    operations, on every column of each level that some column needs, in passes over the row
+    operations, on each level over the span of the columns that need it, in passes over the row
     (those without a branch or a call to log are vectorised).
     """
     nz, n = t.shape
@@ -443,24 +443,24 @@ def most_unstable_level(p, t, q, x, k0, k1, depth, es0, eps, bolton_kappa):
     ln_1000 = np.log(1000.0)
     for k in range(nz):
         pk = p[k]
-        need = False
+        lo, hi = n, 0  # the span of the columns that need this level
         for c in range(n):
-            need |= k >= k0[c] and k < k1[c] and pk >= top[c]
-        if not need:
-            continue
+            if k >= k0[c] and k < k1[c] and pk >= top[c]:
+                lo = min(lo, c)
+                hi = c + 1
         tr, qr, xr = t[k], q[k], x[k]
-        for c in range(n):
+        for c in range(lo, hi):
             qc = qr[c]
             r[c] = 1000.0 * qc / (1.0 - qc)
             arg[c] = 0.01 * pk - 0.01 * (pk * qc / (eps + (1.0 - eps) * qc))
-        for c in range(n):
+        for c in range(lo, hi):
             ln_t[c] = np.log(tr[c])
             arg[c] = np.log(arg[c])
-        for c in range(n):
+        for c in range(lo, hi):
             tl[c] = 2840.0 / (3.5 * ln_t[c] - (xr[c] + ln_e0) - 4.805) + 55.0
-        for c in range(n):
+        for c in range(lo, hi):
             ln_tl[c] = np.log(tl[c])
-        for c in range(n):
+        for c in range(lo, hi):
             if k >= k0[c] and k < k1[c] and pk >= top[c]:
                 rc, tlc = r[c], tl[c]
                 ln_dl = ln_t[c] + bolton_kappa * (ln_1000 - arg[c]) + 0.28e-3 * rc * (ln_t[c] - ln_tl[c])
@@ -500,3 +500,46 @@ def dry_parcels(pend, plev, s, t, x, kappa, es_a, zero_c, es_pole, es_cold):
             satr[c] = (xr[c] + ds[c]) > _es_exponent(tc, es_a, zero_c, es_pole, es_cold)
             sfr[c] = sk + ds[c]
     return sf, tf, sat
+
+
+@numba.njit(**_JIT_NP)
+def moist_layer_depth(p, s, t, x, k0, k1, lt, es_a, zero_c, es_pole, es_cold):
+    """Depth [Pa] of the layer from the lowest valid level up where ln RH ≥ ``lt`` (``moist._moist_layer_depth``).
+
+    ln RH = x − A(T) (A mirrors ``moist._es_exponent``) is linear in ln p between levels; the top
+    is where it falls below ``lt``, or the top of the valid block k0 … k1 − 1 when the column
+    stays moist.  0 when the lowest valid level is drier, NaN in a column without a level.
+    """
+    nz, n = t.shape
+    depth = np.full(n, np.nan)
+    running = np.zeros(n, np.bool_)
+    prev = np.empty(n)
+    s_top = np.full(n, np.nan)
+    cur = np.empty(n)
+    for c in range(n):
+        kc = min(max(k0[c], 0), nz - 1)
+        prev[c] = x[kc, c] - _es_exponent(t[kc, c], es_a, zero_c, es_pole, es_cold)
+        running[c] = prev[c] >= lt and k0[c] < k1[c]
+    lnr0 = prev.copy()
+    for k in range(1, nz):
+        xr, tr = x[k], t[k]
+        for c in range(n):
+            cur[c] = xr[c] - _es_exponent(tr[c], es_a, zero_c, es_pole, es_cold)
+        for c in range(n):
+            if not running[c] or k < k0[c]:
+                continue
+            if k > k0[c] and k < k1[c] and cur[c] < lt:
+                frac = (prev[c] - lt) / (prev[c] - cur[c])
+                s_top[c] = s[k - 1] + frac * (s[k] - s[k - 1])
+                running[c] = False
+            elif k == k1[c] - 1:  # the top of the data, still moist
+                s_top[c] = s[k]
+                running[c] = False
+            prev[c] = cur[c]
+    for c in range(n):
+        if k0[c] >= k1[c]:
+            continue
+        if running[c]:
+            s_top[c] = s[min(max(k1[c] - 1, 0), nz - 1)]
+        depth[c] = p[min(k0[c], nz - 1)] - np.exp(s_top[c]) if lnr0[c] >= lt else 0.0
+    return depth

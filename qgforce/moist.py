@@ -588,37 +588,10 @@ def _moist_layer_depth(prof: _Profile, threshold):
 
     ln RH = x − A(T) is interpolated linearly in ln p to locate where it falls below the
     threshold; 0 when the lowest valid level itself is drier; up to the top of the data when the
-    column stays moist.
+    column stays moist.  Column by column in :func:`qgforce._compiled.moist_layer_depth`.
     """
-    s = prof.s
-    nz, n = prof.t.shape
-    lt = math.log(threshold)
-    ln_rh = lambda k: prof.x[k] - _es_exponent(prof.t[k])  # noqa: E731
-    lnr0 = _gather(prof.x, prof.k0, n) - _es_exponent(_gather(prof.t, prof.k0, n))
-    running = (lnr0 >= lt) & (prof.k0 < prof.k1)
-    s_top = np.full(n, np.nan)
-    prev = np.where(np.isfinite(lnr0), lnr0, -np.inf)
-    for k in range(int(prof.k0.min(initial=nz)) + 1, nz):
-        act = running & (k > prof.k0) & (k < prof.k1)
-        if not act.any():
-            if not (running & (k <= prof.k0)).any():
-                break
-            continue
-        cur = ln_rh(k)
-        stop = act & (cur < lt)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            frac = (prev - lt) / (prev - cur)
-        np.copyto(s_top, s[k - 1] + frac * (s[k] - s[k - 1]), where=stop)
-        running &= ~stop
-        # columns that reach the top of their data moist
-        top = running & (k == prof.k1 - 1)
-        np.copyto(s_top, s[k], where=top)
-        running &= ~top
-        prev = np.where(k >= prof.k0, cur, prev)
-    s_top = np.where(running, s[np.clip(prof.k1 - 1, 0, nz - 1)], s_top)
-    p0 = prof.p[np.clip(prof.k0, 0, nz - 1)]
-    depth = np.where((lnr0 >= lt), p0 - np.exp(s_top), 0.0)
-    return np.where(prof.k0 < prof.k1, depth, np.nan)
+    return _kernels().moist_layer_depth(prof.p, prof.s, prof.t, prof.x, prof.k0, prof.k1, math.log(threshold), _ES_A,
+                                        C.ZERO_CELSIUS, _ES_POLE, _ES_COLD)
 
 
 def _most_unstable_level(prof: _Profile, depth):

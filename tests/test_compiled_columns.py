@@ -5,7 +5,7 @@
 these tests hold them to the Python functions (themselves tested against published tables and
 sympy in tests/test_moist.py), so that the two definitions cannot drift apart.  ``follow_levels``
 is held to the parcel-by-parcel path of ``_follow`` (itself checked against scipy's solve_ivp in
-tests/test_ascent.py).
+tests/test_ascent.py), and ``moist_layer_depth`` to a column-by-column interpolation of ln RH.
 """
 
 import numpy as np
@@ -119,3 +119,36 @@ def test_follow_levels_equals_parcel_by_parcel_paths():
     np.testing.assert_array_equal(np.isnan(got), np.isnan(want))
     np.testing.assert_allclose(got, want, rtol=1e-11, atol=0)
     assert (np.abs(got[kk, cc] / LEVELS[kk] - 1.0) > 0.05).mean() > 0.3  # the parcels do move
+
+
+def test_moist_layer_depth_equals_a_column_by_column_reference():
+    t, q = random_columns(400, 6)
+    q[:, 300:340] = np.asarray(M._q_from_e(0.97 * M._es(t[:, 300:340]), LEVELS[:, None]))  # moist to the top
+    t[1:, 340:345] = np.nan  # one valid level
+    prof = M._make_profile(LEVELS, t, q)
+    threshold = 0.8
+    got = K.moist_layer_depth(prof.p, prof.s, prof.t, prof.x, prof.k0, prof.k1, np.log(threshold), *ES_ARGS)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ln_rh = M._log_rel_vapour(LEVELS[:, None], prof.q) - M._es_exponent(prof.t)
+    s = np.log(LEVELS)
+    want = np.full(prof.n, np.nan)
+    for c in range(prof.n):
+        a, e = prof.k0[c], prof.k1[c]
+        if a >= e:
+            continue
+        r = ln_rh[a:e, c] - np.log(threshold)
+        if not r[0] >= 0:
+            want[c] = 0.0
+            continue
+        below = np.flatnonzero(r < 0)
+        if below.size:  # the zero of r, linear in ln p, between the last moist level and the next
+            j = a + below[0]
+            s_top = s[j - 1] + r[below[0] - 1] / (r[below[0] - 1] - r[below[0]]) * (s[j] - s[j - 1])
+        else:
+            s_top = s[e - 1]
+        want[c] = LEVELS[a] - np.exp(s_top)
+    np.testing.assert_array_equal(np.isnan(got), np.isnan(want))
+    np.testing.assert_allclose(got, want, rtol=1e-12, atol=1e-9)
+    moist = slice(300, 340)
+    np.testing.assert_allclose(want[moist], LEVELS[prof.k0[moist]] - LEVELS[prof.k1[moist] - 1], rtol=1e-12, atol=1e-6)
+    assert (want == 0).any() and (want[:300] > 0).any() and (np.abs(want[340:345]) < 1e-6).all()
