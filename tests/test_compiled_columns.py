@@ -152,3 +152,44 @@ def test_moist_layer_depth_equals_a_column_by_column_reference():
     moist = slice(300, 340)
     np.testing.assert_allclose(want[moist], LEVELS[prof.k0[moist]] - LEVELS[prof.k1[moist] - 1], rtol=1e-12, atol=1e-6)
     assert (want == 0).any() and (want[:300] > 0).any() and (np.abs(want[340:345]) < 1e-6).all()
+
+
+def test_parcel_adiabats_equal_the_lcl_and_the_adiabat_table():
+    rng = np.random.default_rng(7)
+    n = 2000
+    t = rng.uniform(200.0, 315.0, n)
+    s0 = np.log(rng.choice(LEVELS, n))
+    rh = rng.uniform(0.02, 1.0, n)
+    rh[:50] = 1.0  # saturated: the LCL at the start
+    x = np.log(rh) + M._es_exponent(t)
+    x[50:60] = -np.inf  # dry air: no LCL
+    t[60:70] = np.nan
+    s0[70:80] = np.nan
+    s = np.log(LEVELS)
+    # a parcel whose LCL lies exactly on a level: the temperature on its dry adiabat there
+    s0[80], t[80] = s[0], 290.0
+    t_at = 290.0 * np.exp(C.KAPPA * (s[2] - s[0]))
+    x[80] = M._es_exponent(t_at) - (s[2] - s[0])
+    table = M._adiabats()
+    t_lcl, s_lcl, i_lab, w_lab = K.parcel_adiabats(
+        t, x, s0, s, M._ES_A, M._ES_B, C.ZERO_CELSIUS, M._ES_POLE, M._ES_COLD, C.KAPPA, table.T, table.labels[0],
+        table.LABEL_STEP, table.inverse, table.t_grid[0], table.T_STEP, table.s[0], table.S_STEP, s[0])
+
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t_ref = M._lcl_temperature(t, x)
+        s_raw = np.where(np.isfinite(t_ref), s0 + np.log(t_ref / t) / C.KAPPA, -np.inf)
+    np.testing.assert_array_equal(np.isnan(t_lcl), np.isnan(t_ref))
+    np.testing.assert_allclose(t_lcl, t_ref, rtol=1e-14, atol=0)
+    assert np.isnan(t_lcl[50:70]).all() and np.isfinite(t_lcl[:50]).all()
+    assert np.isneginf(s_lcl[50:70]).all() and np.isnan(s_lcl[70:80]).all()
+    moved = (np.isin(s_raw, s) | (s_raw >= s0)) & np.isfinite(s0)
+    s_ref = np.where(moved, np.minimum(s_raw, s0) - 1e-12, np.where(np.isfinite(s0), s_raw, np.nan))
+    np.testing.assert_array_equal(np.isnan(s_lcl), np.isnan(s_ref))
+    np.testing.assert_allclose(s_lcl, s_ref, rtol=1e-14, atol=0)
+    assert moved[:50].all() and abs(s_lcl[80] - (s[2] - 1e-12)) < 1e-9
+    has = np.isfinite(t_ref)
+    ok = np.isfinite(s0)  # (the callers never ask for the adiabat of a parcel without a pressure)
+    i_ref, w_ref = table.cell(table.label(np.where(has, t_ref, 250.0)[ok], np.where(has, s_ref, s[0])[ok]))
+    np.testing.assert_array_equal(i_lab[ok], i_ref)
+    np.testing.assert_allclose(w_lab[ok], w_ref, rtol=1e-12, atol=1e-13)
+    assert ((i_lab >= 0) & (i_lab < table.labels.size - 1)).all()
