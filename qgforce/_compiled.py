@@ -549,7 +549,7 @@ def moist_layer_depth(p, s, t, x, k0, k1, lt, es_a, zero_c, es_pole, es_cold):
 @numba.njit(inline="always")
 def _clip_index(u, hi):
     """int(clip(floor(u), 0, hi)); 0 for a NaN u (never an index outside the table)."""
-    f = np.floor(u) if u == u else 0.0
+    f = 0.0 if np.isnan(u) else np.floor(u)
     return int(min(max(f, 0.0), hi))
 
 
