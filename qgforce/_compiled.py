@@ -21,8 +21,7 @@ import numba
 import numpy as np
 
 __all__ = ["at_log_pressure", "buoyancy_integrals", "heights", "follow_parcels", "follow_levels", "regrid_parcels",
-           "profile_levels", "most_unstable_level", "dry_parcels", "moist_layer_depth",
-           "parcel_adiabats"]
+           "profile_levels", "most_unstable_level", "dry_parcels", "moist_layer_depth"]
 
 _JIT = dict(nogil=True, cache=True)
 #: the kernels below written for whole profiles: a division by zero gives ±inf or NaN as numpy's
@@ -544,93 +543,3 @@ def moist_layer_depth(p, s, t, x, k0, k1, lt, es_a, zero_c, es_pole, es_cold):
             s_top[c] = s[min(max(k1[c] - 1, 0), nz - 1)]
         depth[c] = p[min(k0[c], nz - 1)] - np.exp(s_top[c]) if lnr0[c] >= lt else 0.0
     return depth
-
-
-@numba.njit(inline="always")
-def _clip_index(u, hi):
-    """int(clip(floor(u), 0, hi)); 0 for a NaN u (never an index outside the table)."""
-    f = 0.0 if np.isnan(u) else np.floor(u)
-    return int(min(max(f, 0.0), hi))
-
-
-@numba.njit(inline="always")
-def _weight(u, i):
-    return min(max(u - i, 0.0), 1.0)
-
-
-@numba.njit(**_JIT_NP)
-def parcel_adiabats(t, x, s, s_levels, es_a, es_b, zero_c, es_pole, es_cold, kappa, table, labels0, label_step, inverse, t_grid0,
-                    t_step, s_first, s_step, s_default):
-    """LCL and pseudo-adiabat of parcels (T, x = ln(e/e₀), s = ln p), the start of ``moist._ascend``.
-
-    The LCL temperature by Newton's method seeded by Bolton's eq. 21, two steps (mirrors
-    ``moist._lcl_temperature``); its ln p, s + ln(T_L/T)/κ (−inf without an LCL); the label θw of
-    the pseudo-adiabat through the LCL by the inverse table and one Newton step on the forward
-    interpolant (mirrors ``moist._AdiabatTable.label``; ``table`` and ``inverse`` are its ``T`` and
-    ``inverse``, rows of ln p from ``s_first`` by ``s_step``), for air without an LCL that through
-    (250 K, ``s_default``); and its cell (mirrors ``_AdiabatTable.cell``).  Returns T_L, ln p_L
-    (moved up by 1e-12 where it lies at the start or at one of ``s_levels``, NaN where s is),
-    cell index and weight.
-    """
-    n = t.size
-    ns, nl = table.shape
-    nt = inverse.shape[1]
-    t_lcl = np.empty(n)
-    s_lcl = np.empty(n)
-    i_lab = np.empty(n, np.intp)
-    w_lab = np.empty(n)
-    for c in range(n):
-        tc0, xc = t[c], x[c]
-        # moist._lcl_temperature
-        d = xc - _es_exponent(tc0, es_a, zero_c, es_pole, es_cold)
-        ln_rh = d if not (d > 0.0) else 0.0
-        tl = 1.0 / (1.0 / (tc0 - 55.0) - ln_rh / 2840.0) + 55.0
-        for _ in range(2):
-            tc = tl if not (tl < es_cold) else es_cold
-            g = _es_exponent(tc, es_a, zero_c, es_pole, es_cold) - xc - np.log(tc / tc0) / kappa
-            dg = es_a * es_b / (tc - es_pole) ** 2 - 1.0 / (kappa * tc)
-            tl = tc - g / dg
-        tl = tl if not (tl > tc0) else tc0
-        tl = tl if np.isfinite(xc) else np.nan
-        t_lcl[c] = tl
-        has = np.isfinite(tl)
-        sl = s[c] + np.log(tl / tc0) / kappa if has else -np.inf
-        # an LCL at the start or at a level moves up by 1e-12 in ln p (see moist._ascend)
-        moved = sl >= s[c]
-        for lev in s_levels:
-            moved |= sl == lev
-        if moved:
-            sl = (sl if not (sl > s[c]) else s[c]) - 1e-12
-        sl = sl if np.isfinite(s[c]) else np.nan
-        s_lcl[c] = sl
-        # _AdiabatTable.label(T, s) of the LCL, or of (250 K, s_default)
-        tq = tl if has else 250.0
-        sq = sl if has else s_default
-        u = (sq - s_first) / s_step
-        j = _clip_index(u, ns - 2)
-        ws = _weight(u, j)
-        v = (tq - t_grid0) / t_step
-        v = v if np.isfinite(v) else 0.0
-        m = _clip_index(v, nt - 2)
-        wt = _weight(v, m)
-        lo = inverse[j, m] + wt * (inverse[j, m + 1] - inverse[j, m])
-        hi = inverse[j + 1, m] + wt * (inverse[j + 1, m + 1] - inverse[j + 1, m])
-        lab = lo + ws * (hi - lo)
-        # _AdiabatTable._forward(lab, s)
-        vl = (lab - labels0) / label_step
-        vl = vl if np.isfinite(vl) else 0.0
-        i = _clip_index(vl, nl - 2)
-        wl = _weight(vl, i)
-        t00, t01, t10, t11 = table[j, i], table[j, i + 1], table[j + 1, i], table[j + 1, i + 1]
-        flo = t00 + wl * (t01 - t00)
-        fhi = t10 + wl * (t11 - t10)
-        slope = ((1.0 - ws) * (t01 - t00) + ws * (t11 - t10)) / label_step
-        lab = lab + (tq - (flo + ws * (fhi - flo))) / slope
-        lab = lab if np.isfinite(tq) else np.nan
-        # _AdiabatTable.cell(lab)
-        vl = (lab - labels0) / label_step
-        vl = vl if np.isfinite(vl) else 0.0
-        i = _clip_index(vl, nl - 2)
-        i_lab[c] = i
-        w_lab[c] = _weight(vl, i)
-    return t_lcl, s_lcl, i_lab, w_lab

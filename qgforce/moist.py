@@ -528,22 +528,22 @@ def _ascend(s, tv_env, k1, s0, t0, q0, kfirst, env=None):
     """
     n = np.size(s0)
     env = np.arange(n) if env is None else env
-    f64 = functools.partial(np.ascontiguousarray, dtype=np.float64)
     with np.errstate(invalid="ignore", divide="ignore"):
         x0 = _log_rel_vapour(np.exp(s0), q0)
-    # the LCL (_lcl_temperature) and the label and cell of the pseudo-adiabat through it
-    # (_AdiabatTable.label, .cell), with an LCL exactly at the start or at a level moved up by a
-    # negligible 1e-12 in ln p, so that it always lies strictly inside a segment and is inserted
-    # there: qgforce._compiled.parcel_adiabats
+        t_lcl = _lcl_temperature(t0, x0)
+        s_lcl = np.where(np.isfinite(t_lcl), s0 + np.log(t_lcl / t0) / _K, -np.inf)
+    # an LCL exactly at the start or at a level is moved up by a negligible 1e-12 in ln p, so
+    # that it always lies strictly inside a segment and is inserted there
+    s_lcl = np.where(np.isin(s_lcl, s) | (s_lcl >= s0), np.minimum(s_lcl, s0) - 1e-12, s_lcl)
+    s_lcl = np.where(np.isfinite(s0), s_lcl, np.nan)
     table = _adiabats()
-    t_lcl, s_lcl, i_lab, w_lab = _kernels().parcel_adiabats(
-        f64(t0), f64(x0), f64(s0), f64(s), _ES_A, _ES_B, C.ZERO_CELSIUS, _ES_POLE, _ES_COLD, _K, table.T,
-        table.labels[0], table.LABEL_STEP, table.inverse, table.t_grid[0], table.T_STEP, table.s[0], table.S_STEP, s[0])
     has_lcl = np.isfinite(t_lcl)
+    i_lab, w_lab = table.cell(table.label(np.where(has_lcl, t_lcl, 250.0), np.where(has_lcl, s_lcl, s[0])))
     fv = _tv(1.0, q0)
     # the LFC is sought at or above the LCL; air without vapour has no LCL and its free
     # convection, if any, is dry: it may start anywhere
     s_gate = np.where(has_lcl, s_lcl, np.inf)
+    f64 = functools.partial(np.ascontiguousarray, dtype=np.float64)
     cin, net, cape_el, s_lfc, s_el, found, b_last = _kernels().buoyancy_integrals(
         f64(s), f64(np.exp(_K * s)), f64(tv_env), np.ascontiguousarray(env, np.intp), table.level_rows(s), np.ascontiguousarray(k1, np.intp),
         np.ascontiguousarray(kfirst, np.intp), f64(s0), f64(t0 * fv), f64(s_lcl), f64(t_lcl * fv), f64(s_gate),
