@@ -20,9 +20,12 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["at_log_pressure", "buoyancy_integrals", "heights", "follow_parcels", "follow_levels", "regrid_parcels"]
+__all__ = ["at_log_pressure", "buoyancy_integrals", "heights", "follow_parcels", "follow_levels", "regrid_parcels",
+           "profile_levels", "most_unstable_level", "dry_parcels", "moist_layer_depth"]
 
 _JIT = dict(nogil=True, cache=True)
+#: the kernels below written for whole profiles: a division by zero gives ±inf or NaN as numpy's
+_JIT_NP = dict(nogil=True, cache=True, error_model="numpy")
 
 
 @numba.njit(inline="always")
@@ -192,7 +195,7 @@ def follow_parcels(p, m, col, tau, om, plev, k0, k1, stop):
     return p_out, m_out, t_out, reached
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_JIT_NP)
 def follow_levels(om, plev, k0, k1, dur):
     """The pressure (nz, N) reached after ``dur[c]`` s by the air of every valid level (NaN elsewhere).
 
@@ -202,46 +205,74 @@ def follow_levels(om, plev, k0, k1, dur):
     depends only on the layer, so it is computed once per layer and column, and each parcel adds
     whole layers until the one it ends in, where p(t) = p₀ + ω₀ t (e^{bt} − 1)/(bt).  Measured on
     the ascent benchmark's blocks: 2.4 times faster than following each parcel with
-    :func:`_follow`, equal to 4e-15 relative (2026-12-02).
+    :func:`_follow`, equal to 4e-15 relative (2026-12-02).  The arithmetic of
+    :func:`_crossing_time` and of the last layer runs in passes over each row, the calls to log
+    and expm1 in passes of their own, so that the rest is vectorised (the same operations: equal
+    to the bit; 12000 columns of 25 levels in 8.8 ms against 12.4 ms, 2026-12-04).
     """
     nz, n = om.shape
     out = np.full((nz, n), np.nan)
     crossing = np.empty((nz, n))  # layer j: between levels j and j + 1
+    v0, v1, ratio, step = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
     for j in range(nz - 1):  # level by level: neighbouring columns read neighbouring memory
         dp = plev[j + 1] - plev[j]
+        om0, om1, cr = om[j], om[j + 1], crossing[j]
+        for c in range(n):  # _crossing_time(dp, o0, o1) if o0 < 0 else _crossing_time(-dp, o1, o0)
+            up = om0[c] < 0
+            a = om0[c] if up else om1[c]
+            b = om1[c] if up else om0[c]
+            v0[c], v1[c], step[c] = a, b, dp if up else -dp
+            ratio[c] = b / a
+        for c in range(n):
+            v1[c] = np.log(ratio[c]) if v0[c] * v1[c] > 0 else np.inf
         for c in range(n):
             if j >= k0[c] and j + 1 < k1[c]:
-                o0, o1 = om[j, c], om[j + 1, c]
-                crossing[j, c] = _crossing_time(dp, o0, o1) if o0 < 0 else _crossing_time(-dp, o1, o0)
+                if not (v1[c] < np.inf):
+                    cr[c] = np.inf
+                else:
+                    y = ratio[c] - 1.0
+                    psi = 1.0 - 0.5 * y if abs(y) < 1e-7 else v1[c] / y
+                    cr[c] = step[c] / v0[c] * psi
+    left, base, rate, x = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
     for k in range(nz):
-        for c in range(n):
+        for c in range(n):  # whole layers first; the layer the parcel ends in is kept
             kb, kt = k0[c], k1[c] - 1
             if k < kb or k > kt:
                 continue
-            left = dur[c]
+            lc = dur[c]
             m = k
-            p = plev[m]
-            if left > 0:
+            v = 0.0
+            b = 0.0
+            if lc > 0:
                 v = om[m, c]
-                b = 0.0
                 if v < 0:
-                    while m < kt and left >= crossing[m, c]:
-                        left -= crossing[m, c]
+                    while m < kt and lc >= crossing[m, c]:
+                        lc -= crossing[m, c]
                         m += 1
                     v = om[m, c]
                     if m < kt:
                         b = (om[m + 1, c] - v) / (plev[m + 1] - plev[m])
                 elif v > 0:
-                    while m > kb and left >= crossing[m - 1, c]:
-                        left -= crossing[m - 1, c]
+                    while m > kb and lc >= crossing[m - 1, c]:
+                        lc -= crossing[m - 1, c]
                         m -= 1
                     v = om[m, c]
                     if m > kb:
                         b = (om[m - 1, c] - v) / (plev[m - 1] - plev[m])
-                x = b * left
-                phi = 1.0 + 0.5 * x if abs(x) < 1e-8 else np.expm1(x) / x
-                p = _max_nan(plev[m] + v * left * phi, 0.5 * plev[kt])
-            out[k, c] = p
+            left[c], base[c], rate[c], x[c] = lc, plev[m], v, b * lc
+        for c in range(n):
+            v0[c] = np.expm1(x[c])
+        row = out[k]
+        for c in range(n):
+            kb, kt = k0[c], k1[c] - 1
+            if k < kb or k > kt:
+                continue
+            if left[c] > 0:
+                xc = x[c]
+                phi = 1.0 + 0.5 * xc if abs(xc) < 1e-8 else v0[c] / xc
+                row[c] = _max_nan(base[c] + rate[c] * left[c] * phi, 0.5 * plev[kt])
+            else:
+                row[c] = base[c]
     return out
 
 
@@ -329,3 +360,186 @@ def at_log_pressure(s, f, tv, z, k0, k1, s_t, r_over_2g):
         tv_t = tv[j, c] + w * (tv[j + 1, c] - tv[j, c])
         z_t[c] = z[j, c] + r_over_2g * (tv[j, c] + tv_t) * (s[j] - st)
     return f_t, z_t
+
+
+# ------------------------------------------------------------------- profiles, level by level
+# The formulas below mirror functions of qgforce.moist (named in each docstring);
+# tests/test_compiled_columns.py checks each kernel against the functions it mirrors.
+
+
+@numba.njit(inline="always")
+def _es_exponent(t, es_a, zero_c, es_pole, es_cold):
+    """A(T) = 17.67 (T − 273.15) / (T − 29.65), T raised to ``es_cold`` (mirrors ``thermo.formulas.saturation_exponent``)."""
+    tc = t if not (t < es_cold) else es_cold  # a NaN stays NaN, as numpy.maximum
+    return es_a * (tc - zero_c) / (tc - es_pole)
+
+
+@numba.njit(**_JIT_NP)
+def profile_levels(p, t, q, k0, k1, es0, es_a, zero_c, es_pole, es_cold, eps):
+    """The level loop of ``columns.profile.make_profile``, in place on (nz, N) ``t`` and ``q``.
+
+    Sets T and q to NaN outside the valid block k0 … k1 − 1 of each column, negative q to 0 and
+    supersaturated q to q_s (over water, Bolton eq. 10), and computes x = ln(e / e₀) (mirrors
+    ``thermo.formulas.vapour_pressure`` and ``thermo.formulas.log_vapour_ratio``, x = A(T) at saturation) and
+    T_v = T (1 + q (1/ε − 1)) (mirrors ``thermo.formulas.virtual_temperature``); q from e mirrors ``thermo.formulas.specific_humidity_from_vapour_pressure`` and
+    e_s ``thermo.formulas.saturation_vapour_pressure``.  Returns x, T_v and the counts of negative and of supersaturated (beyond
+    1e-9 in x) values.  Each level runs as several passes over its row, so that those without a
+    branch or a call to a transcendental function are vectorised (measured on 12000 columns
+    of 25 levels: 4.9 ms against 9.7 ms as one loop with branches, 6.0 ms in numpy; 2026-12-04).
+    """
+    nz, n = t.shape
+    x = np.empty((nz, n))
+    tv = np.empty((nz, n))
+    a = np.empty(n)
+    n_neg = 0
+    n_sup = 0
+    fv = 1.0 / eps - 1.0
+    for k in range(nz):  # level by level: neighbouring columns read neighbouring memory
+        pk = p[k]
+        tr, qr, xr, vr = t[k], q[k], x[k], tv[k]
+        for c in range(n):
+            if k < k0[c] or k >= k1[c]:
+                tr[c] = np.nan
+                qr[c] = np.nan
+            if qr[c] < 0:
+                n_neg += 1
+                qr[c] = 0.0
+        for c in range(n):
+            qc = qr[c]
+            xr[c] = pk * qc / (eps + (1.0 - eps) * qc) / es0
+            a[c] = _es_exponent(tr[c], es_a, zero_c, es_pole, es_cold)
+        for c in range(n):
+            xr[c] = np.log(xr[c])
+        for c in range(n):
+            if xr[c] > a[c]:
+                if xr[c] > a[c] + 1e-9:
+                    n_sup += 1
+                e = es0 * np.exp(a[c])
+                qr[c] = eps * e / (pk - (1.0 - eps) * e)
+                xr[c] = a[c]
+        for c in range(n):
+            vr[c] = tr[c] * (1.0 + qr[c] * fv)
+    return x, tv, n_neg, n_sup
+
+
+@numba.njit(**_JIT_NP)
+def most_unstable_level(p, t, q, x, k0, k1, depth, es0, eps, bolton_kappa):
+    """Index of the level of largest θe within ``depth`` [Pa] above the lowest valid level
+    (``columns.parcel.most_unstable_level``; the first level wins a tie), and that largest ln θe
+    (−inf in a column without a level).
+
+    ln θe by Bolton (1980) eqs. 39, 22, 24, mirroring ``thermo.formulas.log_equivalent_potential_temperature`` in the same order of
+    operations, on each level over the span of the columns that need it, in passes over the row
+    (those without a branch or a call to log are vectorised).
+    """
+    nz, n = t.shape
+    kbest = k0.copy()
+    best = np.full(n, -np.inf)
+    top = np.empty(n)  # the highest pressure reached: p at the lowest valid level − depth
+    for c in range(n):
+        top[c] = p[min(max(k0[c], 0), nz - 1)] - depth
+    r, arg, ln_t, tl, ln_tl = np.empty(n), np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    ln_e0 = np.log(es0 / 100.0)
+    ln_1000 = np.log(1000.0)
+    for k in range(nz):
+        pk = p[k]
+        lo, hi = n, 0  # the span of the columns that need this level
+        for c in range(n):
+            if k >= k0[c] and k < k1[c] and pk >= top[c]:
+                lo = min(lo, c)
+                hi = c + 1
+        tr, qr, xr = t[k], q[k], x[k]
+        for c in range(lo, hi):
+            qc = qr[c]
+            r[c] = 1000.0 * qc / (1.0 - qc)
+            arg[c] = 0.01 * pk - 0.01 * (pk * qc / (eps + (1.0 - eps) * qc))
+        for c in range(lo, hi):
+            ln_t[c] = np.log(tr[c])
+            arg[c] = np.log(arg[c])
+        for c in range(lo, hi):
+            tl[c] = 2840.0 / (3.5 * ln_t[c] - (xr[c] + ln_e0) - 4.805) + 55.0
+        for c in range(lo, hi):
+            ln_tl[c] = np.log(tl[c])
+        for c in range(lo, hi):
+            if k >= k0[c] and k < k1[c] and pk >= top[c]:
+                rc, tlc = r[c], tl[c]
+                ln_dl = ln_t[c] + bolton_kappa * (ln_1000 - arg[c]) + 0.28e-3 * rc * (ln_t[c] - ln_tl[c])
+                lte = ln_dl + (3.036 / tlc - 0.00178) * rc * (1.0 + 0.448e-3 * rc)
+                if lte > best[c]:
+                    best[c] = lte
+                    kbest[c] = k
+    return kbest, best
+
+
+@numba.njit(**_JIT_NP)
+def dry_parcels(pend, plev, s, t, x, kappa, es_a, zero_c, es_pole, es_cold):
+    """The dry-adiabatic end states of ``ascent._lift_parcels``: each level's parcel moved to ``pend``.
+
+    With d = ln(p_end / p): ln p_end = ln p + d, T = T₀ e^{κ d} (θ conserved) and saturated where
+    x + d > A(T) (e falls with p at constant mixing ratio; A mirrors ``thermo.formulas.saturation_exponent``).
+    Returns ln p, T (NaN where ``pend`` is) and the saturation flag, (nz, N) each; in passes over
+    each row, those without a call to log or exp vectorised.
+    """
+    nz, n = pend.shape
+    sf = np.empty((nz, n))
+    tf = np.empty((nz, n))
+    sat = np.empty((nz, n), np.bool_)
+    ds = np.empty(n)
+    for k in range(nz):
+        pk, sk = plev[k], s[k]
+        pr, tr, xr, sfr, tfr, satr = pend[k], t[k], x[k], sf[k], tf[k], sat[k]
+        for c in range(n):
+            ds[c] = pr[c] / pk
+        for c in range(n):
+            ds[c] = np.log(ds[c])
+        for c in range(n):
+            tfr[c] = np.exp(kappa * ds[c])
+        for c in range(n):
+            tc = tr[c] * tfr[c]
+            tfr[c] = tc
+            satr[c] = (xr[c] + ds[c]) > _es_exponent(tc, es_a, zero_c, es_pole, es_cold)
+            sfr[c] = sk + ds[c]
+    return sf, tf, sat
+
+
+@numba.njit(**_JIT_NP)
+def moist_layer_depth(p, s, t, x, k0, k1, lt, es_a, zero_c, es_pole, es_cold):
+    """Depth [Pa] of the layer from the lowest valid level up where ln RH ≥ ``lt`` (``columns.parcel.moist_layer_depth``).
+
+    ln RH = x − A(T) (A mirrors ``thermo.formulas.saturation_exponent``) is linear in ln p between levels; the top
+    is where it falls below ``lt``, or the top of the valid block k0 … k1 − 1 when the column
+    stays moist.  0 when the lowest valid level is drier, NaN in a column without a level.
+    """
+    nz, n = t.shape
+    depth = np.full(n, np.nan)
+    running = np.zeros(n, np.bool_)
+    prev = np.empty(n)
+    s_top = np.full(n, np.nan)
+    cur = np.empty(n)
+    for c in range(n):
+        kc = min(max(k0[c], 0), nz - 1)
+        prev[c] = x[kc, c] - _es_exponent(t[kc, c], es_a, zero_c, es_pole, es_cold)
+        running[c] = prev[c] >= lt and k0[c] < k1[c]
+    lnr0 = prev.copy()
+    for k in range(1, nz):
+        xr, tr = x[k], t[k]
+        for c in range(n):
+            cur[c] = xr[c] - _es_exponent(tr[c], es_a, zero_c, es_pole, es_cold)
+        for c in range(n):
+            if not running[c] or k < k0[c]:
+                continue
+            if k > k0[c] and k < k1[c] and cur[c] < lt:
+                frac = (prev[c] - lt) / (prev[c] - cur[c])
+                s_top[c] = s[k - 1] + frac * (s[k] - s[k - 1])
+                running[c] = False
+            elif k == k1[c] - 1:  # the top of the data, still moist
+                s_top[c] = s[k]
+                running[c] = False
+            prev[c] = cur[c]
+    for c in range(n):
+        if k0[c] >= k1[c]:
+            continue
+        if running[c]:
+            s_top[c] = s[min(max(k1[c] - 1, 0), nz - 1)]
+        depth[c] = p[min(k0[c], nz - 1)] - np.exp(s_top[c]) if lnr0[c] >= lt else 0.0
+    return depth

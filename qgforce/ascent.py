@@ -306,10 +306,8 @@ def _lift_parcels(prof, flow: _Flow, dur):
             kk, cc = np.nonzero((idx >= prof.k0) & (idx < prof.k1))
             pend = np.full((nz, n), np.nan)
             pend[kk, cc] = _move(plev[kk], kk, cc, dur[cc], flow, plev, prof.k0, prof.k1)[0]
-        ds = np.log(pend / plev[:, None])
-        tf = prof.t * np.exp(_K * ds)
-        sat_all = (prof.x + ds) > F.saturation_exponent(tf)
-        sf = s[:, None] + ds
+    # the dry-adiabatic end states (ln p, T, saturated), level by level: qgforce._compiled.dry_parcels
+    sf, tf, sat_all = compiled_kernels().dry_parcels(pend, plev, s, prof.t, prof.x, _K, *F.SATURATION_EXPONENT_CONSTANTS)
     qf = prof.q.copy()
     # saturated parcels: from their LCL along their pseudo-adiabat (condensate removed)
     kk, cc = np.nonzero(sat_all)

@@ -139,56 +139,16 @@ def moist_layer_depth(prof: Profile, threshold):
 
     ln RH = x − A(T) is interpolated linearly in ln p to locate where it falls below the
     threshold; 0 when the lowest valid level itself is drier; up to the top of the data when the
-    column stays moist.
+    column stays moist.  Column by column in :func:`qgforce._compiled.moist_layer_depth`.
     """
-    s = prof.s
-    nz, n = prof.t.shape
-    lt = math.log(threshold)
-    ln_rh = lambda k: prof.x[k] - F.saturation_exponent(prof.t[k])  # noqa: E731
-    lnr0 = gather(prof.x, prof.k0, n) - F.saturation_exponent(gather(prof.t, prof.k0, n))
-    running = (lnr0 >= lt) & (prof.k0 < prof.k1)
-    s_top = np.full(n, np.nan)
-    prev = np.where(np.isfinite(lnr0), lnr0, -np.inf)
-    for k in range(int(prof.k0.min(initial=nz)) + 1, nz):
-        act = running & (k > prof.k0) & (k < prof.k1)
-        if not act.any():
-            if not (running & (k <= prof.k0)).any():
-                break
-            continue
-        cur = ln_rh(k)
-        stop = act & (cur < lt)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            frac = (prev - lt) / (prev - cur)
-        np.copyto(s_top, s[k - 1] + frac * (s[k] - s[k - 1]), where=stop)
-        running &= ~stop
-        # columns that reach the top of their data moist
-        top = running & (k == prof.k1 - 1)
-        np.copyto(s_top, s[k], where=top)
-        running &= ~top
-        prev = np.where(k >= prof.k0, cur, prev)
-    s_top = np.where(running, s[np.clip(prof.k1 - 1, 0, nz - 1)], s_top)
-    p0 = prof.p[np.clip(prof.k0, 0, nz - 1)]
-    depth = np.where((lnr0 >= lt), p0 - np.exp(s_top), 0.0)
-    return np.where(prof.k0 < prof.k1, depth, np.nan)
+    return compiled_kernels().moist_layer_depth(prof.p, prof.s, prof.t, prof.x, prof.k0, prof.k1, math.log(threshold),
+                                                *F.SATURATION_EXPONENT_CONSTANTS)
 
 
 def most_unstable_level(prof: Profile, depth):
     """Index of the level of largest θe within ``depth`` [Pa] above the lowest valid level."""
-    nz, n = prof.t.shape
-    p_base = prof.p[np.clip(prof.k0, 0, nz - 1)]
-    best = np.full(n, -np.inf)
-    kbest = prof.k0.copy()
-    for k in range(int(prof.k0.min(initial=nz)), nz):
-        act = (k >= prof.k0) & (k < prof.k1) & (prof.p[k] >= p_base - depth)
-        if not act.any():
-            if (k > prof.k0).all():
-                break
-            continue
-        lte = F.log_equivalent_potential_temperature(prof.t[k], prof.p[k], prof.q[k], prof.x[k])
-        better = act & (lte > best)
-        best[better] = lte[better]
-        kbest[better] = k
-    return kbest
+    return compiled_kernels().most_unstable_level(prof.p, prof.t, prof.q, prof.x, prof.k0, prof.k1, float(depth), F.ES0,
+                                                  C.EPSILON, F.BOLTON_KAPPA)[0]
 
 
 def diagnose(prof: Profile, mu_depth=DEFAULT_MOST_UNSTABLE_DEPTH, moist_threshold=DEFAULT_MOIST_THRESHOLD):

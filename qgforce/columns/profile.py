@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .. import constants as C
 from ..calculus import LEVEL
 from ..errors import DataQualityWarning
 from ..thermo import formulas as F
@@ -110,29 +111,11 @@ def make_profile(p, t, q, valid=None, copy=True) -> Profile:
     ok = np.isfinite(t) & np.isfinite(q) & (t > 0)
     if valid is not None:
         ok &= valid
-    k0, k1, block = valid_block(ok)
-    if not block.all():
-        t[~block] = np.nan
-        q[~block] = np.nan
-    neg = q < 0
-    n_neg = int(np.count_nonzero(neg))
-    if n_neg:
-        q[neg] = 0.0
-    # level by level: rows stay small (whole-block temporaries are slow to allocate)
-    x = np.empty_like(t)
-    tv = np.empty_like(t)
-    n_sup = 0
-    with np.errstate(divide="ignore", invalid="ignore"):
-        for k in range(p.size):
-            tk, qk, xk = t[k], q[k], x[k]
-            np.log(F.vapour_pressure(p[k], qk) / F.ES0, out=xk)
-            a = F.saturation_exponent(tk)
-            sup = xk > a
-            if sup.any():
-                n_sup += int(np.count_nonzero(xk > a + 1e-9))
-                qk[sup] = F.specific_humidity_from_vapour_pressure(F.saturation_vapour_pressure(tk[sup]), p[k])
-                xk[sup] = a[sup]
-            tv[k] = F.virtual_temperature(tk, qk)
+    k0, k1, _ = valid_block(ok)
+    # NaN outside the block, clipping, x and T_v level by level: qgforce._compiled.profile_levels
+    # (mirrors the formulas of qgforce.thermo.formulas; tests/test_compiled_columns.py compares them)
+    x, tv, n_neg, n_sup = compiled_kernels().profile_levels(p, t, q, k0, k1, F.ES0, *F.SATURATION_EXPONENT_CONSTANTS,
+                                                            C.EPSILON)
     prof = Profile(p, t, q, x, tv, k0, k1)
     prof.cache["clipped"] = (n_neg, n_sup)
     return prof

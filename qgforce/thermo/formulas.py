@@ -81,6 +81,12 @@ _ES_COLD = 100.0
 # --- Bolton (1980) eqs. 21, 22, 24 and 39 (coefficients of the published formulas).
 _BOLTON_KAPPA = 0.2854  # Bolton's R/c_p of dry air, used inside his θe formulas
 
+#: Bolton's θe coefficient κ = 0.2854 (public for the compiled column kernels, which take it as an argument).
+BOLTON_KAPPA = _BOLTON_KAPPA
+#: The constants of :func:`saturation_exponent` in the order the compiled column kernels of
+#: :mod:`qgforce._compiled` take them: (17.67, 273.15 K, the pole 29.65 K, the cold floor 100 K).
+SATURATION_EXPONENT_CONSTANTS = (_ES_A, C.ZERO_CELSIUS, _ES_POLE, _ES_COLD)
+
 _R = C.DRY_AIR_GAS_CONSTANT
 _CP = C.DRY_AIR_SPECIFIC_HEAT_P
 _K = C.KAPPA
