@@ -43,6 +43,8 @@ from pathlib import Path
 
 from ._version import __version__
 from .errors import InputDataError, OptionError, QGForceError
+from .jobs.config import config_options, read_config
+from .jobs.config import shown as _shown
 
 __all__ = ["main", "build_parser", "COMMANDS"]
 
@@ -304,19 +306,6 @@ def _fail(where: str, message: str):
     raise OptionError(f"{where}: {message}")
 
 
-#: Longest value a message quotes in full (a longer one is shown by its start and its length).
-_SHOWN_CHARS = 80
-
-
-def _shown(value) -> str:
-    """``repr(value)``, or its start and its size when long: a message never echoes a huge value."""
-    text = repr(value)
-    if len(text) <= _SHOWN_CHARS:
-        return text
-    size = f"{len(value)} items" if isinstance(value, (list, tuple, dict)) else f"{len(text)} characters"
-    return f"{text[:40]}... ({size})"
-
-
 def _shared(parser, value, where: str):
     """``parser(value)`` of :mod:`qgforce.jobs.choices` (the rules the jobs apply), its message prefixed with the option."""
     try:
@@ -454,87 +443,6 @@ def _relative(path: str, base: Path | None) -> str:
     return text
 
 
-def _load_config(path: str) -> dict:
-    try:
-        import tomllib
-    except ImportError:  # Python 3.10
-        import tomli as tomllib
-    try:
-        with open(path, "rb") as fh:
-            raw = fh.read(_CONFIG_MAX_BYTES + 1)
-        if len(raw) > _CONFIG_MAX_BYTES:
-            raise InputDataError(f"config file {path!r} is larger than {_CONFIG_MAX_BYTES // 1024} KiB; an option "
-                                 "file is a few lines (file lists belong on the command line or in a glob)")
-        data = tomllib.loads(raw.decode("utf-8"))
-    except RecursionError:
-        raise InputDataError(f"config file {path!r} nests arrays or tables too deeply to read; option values are "
-                             f"plain values or lists of them (at most {_CONFIG_MAX_DEPTH} levels)") from None
-    except UnicodeDecodeError as exc:
-        raise InputDataError(f"config file {path!r} is not UTF-8 text: {exc.reason} at byte {exc.start}") from None
-    except FileNotFoundError:
-        raise InputDataError(f"config file not found: {path!r}") from None
-    except OSError as exc:
-        raise InputDataError(f"cannot read the config file {path!r}: {exc.strerror or exc}") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InputDataError(f"config file {path!r} is not valid TOML: {exc}") from None
-    known_tables = ("defaults",) + tuple(COMMANDS)
-    for table, content in data.items():
-        if table not in known_tables:
-            raise InputDataError(
-                f"config file {path!r}: unknown table [{table}]; the tables are "
-                + ", ".join(f"[{t}]" for t in known_tables)
-            )
-        if not isinstance(content, dict):
-            raise InputDataError(f"config file {path!r}: {table} must be a table [{table}], found {_shown(content)}")
-        for key, value in content.items():
-            _check_config_value(value, f"config file {path!r}: [{table}] {key}")
-    return data
-
-
-#: Limits of a config file: its size, the nesting of its values, items per list, characters per text.
-_CONFIG_MAX_BYTES = 1 << 20
-_CONFIG_MAX_DEPTH = 3
-_CONFIG_MAX_ITEMS = 10000
-_CONFIG_MAX_CHARS = 4096
-
-
-def _check_config_value(value, where: str) -> None:
-    """Refuse a config value nested deeper, longer or larger than any option needs (no recursion)."""
-    stack = [(value, 1)]
-    while stack:
-        item, depth = stack.pop()
-        if depth > _CONFIG_MAX_DEPTH:
-            raise InputDataError(f"{where}: values nested more than {_CONFIG_MAX_DEPTH} levels deep; an option is a "
-                                 "plain value, a list of plain values or a table of them")
-        if isinstance(item, str) and len(item) > _CONFIG_MAX_CHARS:
-            raise InputDataError(f"{where}: a text of {len(item)} characters; at most {_CONFIG_MAX_CHARS} are "
-                                 "accepted (a path, a list of names or a time range is far shorter)")
-        if isinstance(item, (list, dict)):
-            if len(item) > _CONFIG_MAX_ITEMS:
-                raise InputDataError(f"{where}: {len(item)} items; at most {_CONFIG_MAX_ITEMS} are accepted")
-            children = item.values() if isinstance(item, dict) else item
-            stack.extend((child, depth + 1) for child in children)
-
-
-def _config_options(data: dict, command: str, path: str) -> tuple[dict, dict]:
-    """(values from [defaults], values from [command]), keys checked against the known options."""
-    usable = [d for d in COMMANDS[command][2] if d != "config"]
-    every = sorted({d for c in COMMANDS.values() for d in c[2] if d != "config"})
-    out = []
-    for table, allowed in (("defaults", every), (command, usable)):
-        values = {}
-        for key, value in data.get(table, {}).items():
-            dest = key.replace("-", "_")
-            if dest not in allowed:
-                raise InputDataError(
-                    f"config file {path!r}: unknown key {key!r} in [{table}]; the known keys are "
-                    + ", ".join(k.replace("_", "-") for k in allowed)
-                )
-            values[dest] = value
-        out.append(values)
-    return out[0], out[1]
-
-
 def _resolve(ns: argparse.Namespace, command: str) -> dict:
     """The value of every option of ``command``: flag, else [command], else [defaults], else built-in."""
     dests = [d for d in COMMANDS[command][2]]
@@ -543,7 +451,10 @@ def _resolve(ns: argparse.Namespace, command: str) -> dict:
     config = None
     if getattr(ns, "config", None) is not None:
         config = os.path.expanduser(ns.config)
-        from_defaults, from_command = _config_options(_load_config(config), command, config)
+        usable = [d for d in COMMANDS[command][2] if d != "config"]
+        every = sorted({d for c in COMMANDS.values() for d in c[2] if d != "config"})
+        from_defaults, from_command = config_options(read_config(config, ("defaults",) + tuple(COMMANDS)), command,
+                                                     config, usable, every)
     base = Path(config).resolve().parent if config else None
     values = {}
     for dest in dests:

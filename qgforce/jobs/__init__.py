@@ -1,6 +1,7 @@
 """The jobs the command line runs, one small module each, as plain functions over the library.
 
 * :mod:`.choices`: option parsers shared by the command line and the jobs (forms, levels, times, region);
+* :mod:`.config`: the command line's TOML option files (read and checked, one clear line per fault);
 * :mod:`.describe`: ``inspect`` (find and open the inputs, describe them and what they allow);
 * :mod:`.compute`: ``compute`` (the diagnostics of a job as one dataset, written to CF NetCDF);
 * :mod:`.maps`: ``maps`` (plan, then draw, the PNG maps);

@@ -20,7 +20,6 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from .. import constants as C
 from . import formulas as F
 from .adiabats import adiabat_table, integrate_adiabat
 
@@ -40,8 +39,6 @@ __all__ = [
     "pseudo_adiabatic_lapse_rate",
     "moist_adiabat",
 ]
-
-_K = C.KAPPA
 
 
 def _elementwise(kernel, *args, name, attrs, n_out=1):
@@ -184,7 +181,7 @@ def lifting_condensation_level(temperature, pressure, specific_humidity):
 
     def kernel(t, p, q):
         tl = F.lcl_temperature(t, F.log_vapour_ratio(p, q))
-        return tl, p * (tl / t) ** (1.0 / _K)
+        return tl, np.exp(F.lcl_log_pressure(np.log(p), t, tl))
 
     return _elementwise(kernel, temperature, pressure, specific_humidity, n_out=2,
                         name=("lcl_temperature", "lcl_pressure"),
