@@ -36,6 +36,7 @@ from __future__ import annotations
 
 import contextlib
 import datetime
+import inspect
 import os
 import warnings
 from collections.abc import Mapping
@@ -161,10 +162,11 @@ def compute_record(
 
     legacy = {k: v for k, v in (("forcing", forcing), ("forcing_options", forcing_options),
                                 ("omega_options", omega_options)) if v is not None}
-    unknown = sorted(set(options) - _RECORD_OPTIONS)
+    known = set(inspect.signature(build_results).parameters) - {"ds"}  # the compute job's options, one list
+    unknown = sorted(set(options) - known)
     if unknown:
         raise OptionError(f"compute_record: unknown option(s) {unknown}; the options are those of "
-                          f"qgforce.jobs.compute.build_results: {', '.join(sorted(_RECORD_OPTIONS))}")
+                          f"qgforce.jobs.compute.build_results: {', '.join(sorted(known))}")
     if int(steps_per_chunk) != steps_per_chunk or steps_per_chunk < 1:
         raise OptionError(f"steps_per_chunk must be a positive integer; found {steps_per_chunk!r}")
     if levels_per_chunk not in ("auto", None) and (isinstance(levels_per_chunk, str) or int(levels_per_chunk) != levels_per_chunk
@@ -203,11 +205,6 @@ def compute_record(
     if "qgforce_skipped_files" in ds.attrs:
         out.attrs["qgforce_skipped_files"] = ds.attrs["qgforce_skipped_files"]
     return out
-
-
-#: The result options :func:`compute_record` passes on (those of ``build_results``).
-_RECORD_OPTIONS = frozenset({"fields", "optional_fields", "levels", "times", "region", "form", "omega", "smoothing",
-                             "coriolis", "f0_latitude", "equator_mask", "below_ground"})
 
 
 def _legacy_results(ds, forcing, forcing_options, omega_options, options) -> xr.Dataset:
