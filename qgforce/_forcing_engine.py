@@ -32,7 +32,8 @@ from .calculus import LEVEL, gradient
 from .errors import OptionError
 from .kinematics import _choice_attrs
 
-__all__ = ["compiled_applies", "compiled_context", "resolve_threads", "THREADS_ENV", "OUTPUT_NAMES"]
+__all__ = ["compiled_applies", "compiled_context", "resolve_threads", "PressureDerivative", "THREADS_ENV",
+           "OUTPUT_NAMES"]
 
 #: Environment variable read when ``workers`` is not given (the variable of the column kernels).
 THREADS_ENV = "QGFORCE_NUM_THREADS"
@@ -257,7 +258,6 @@ class _LevelPass:
         arrays = self.allocate(shape, out)
         flat = {k: a.reshape((n, ny, nx)) for k, a in arrays.items()}
         direct = self.store == np.float64
-        threads = max(1, min(self.threads, n))
 
         def work(first: int, last: int) -> None:
             zeta, at = np.empty((ny, nx)), np.empty((ny, nx))
@@ -269,12 +269,7 @@ class _LevelPass:
                              *self.geometry, float(k_rp[s]), float(c_theta[s]), self.f0,
                              ug, o[18], zeta, at, qx, qy, qnx, qny, o, not direct)
 
-        bounds = np.linspace(0, n, threads + 1).astype(int)
-        if threads == 1:
-            work(0, n)
-        else:
-            with ThreadPoolExecutor(threads) as pool:
-                list(pool.map(work, bounds[:-1], bounds[1:]))
+        _run_ranges(work, n, self.threads)
         return arrays
 
 
@@ -373,7 +368,9 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
         if LEVEL in dims:
             p = p[(slice(None),) + (None,) * (len(dims) - 3 - dims.index(LEVEL))]
         arrays = kernel(ref.values, ctx.phi.transpose(*dims).values, *wind, p, fx, fy, out=out)
-    das = {k: xr.DataArray(a, dims=dims, coords=ref.coords) for k, a in arrays.items()}
+    template = ref.copy(deep=False)  # the outputs share its dims and coordinates (a copy is cheaper than
+    template.attrs, template.name = {}, None  # DataArray(..., coords=...), which validates them again)
+    das = {k: template.copy(deep=False, data=a) for k, a in arrays.items()}
     ctx._temperature_advection[temperature_wind] = das["temperature_advection"]
     # the labels of kinematics.geostrophic_wind on lat-lon grids
     wind_attrs = {"units": "m s-1", **_choice_attrs(cor)}
@@ -394,3 +391,87 @@ def compiled_context(ctx, temperature_wind: str, frontogenesis_wind: str, dtype=
     ctx.frontogenesis = lambda kind: front
     ctx.slabs = None
     return ctx
+
+
+def _run_ranges(work, n: int, threads: int, align: int = 1) -> None:
+    """``work(first, last)`` over ``threads`` disjoint ranges of ``range(n)`` (starts multiples of ``align``)."""
+    threads = max(1, min(threads, -(-n // align)))
+    if threads == 1:
+        work(0, n)
+        return
+    bounds = [min(n, -(-(n * i // threads) // align) * align) for i in range(threads + 1)]
+    bounds[-1] = n
+    with ThreadPoolExecutor(threads) as pool:
+        list(pool.map(work, bounds[:-1], bounds[1:]))
+
+
+def _pressure_derivative(a: np.ndarray, scale: np.ndarray, p: np.ndarray, store: np.dtype, threads: int,
+                         copy: bool = False):
+    """scale · ∂a/∂p of a numpy block (…, level, y, x) in ``store`` (and ``a`` in ``store`` when ``copy``)."""
+    from ._forcing_kernels import PRESSURE_BLOCK, pressure_derivative
+
+    nz, ny, nx = a.shape[-3:]
+    A = _read_only(np.ascontiguousarray(a, dtype=np.float64).reshape((-1, nz, ny * nx)))
+    s = _read_only(np.ascontiguousarray(np.broadcast_to(scale, (ny, nx)), dtype=np.float64).reshape(-1))
+    idx, w, mode, inv2h = _axis(p, False)
+    out = np.empty(a.shape, dtype=store)
+    kept = np.empty(a.shape, dtype=store) if copy else out
+    o, c = out.reshape(A.shape), kept.reshape(A.shape)
+    _run_ranges(lambda first, last: pressure_derivative(A, idx, w, mode, float(inv2h), s, o, c, copy, first, last),
+                ny * nx, threads, PRESSURE_BLOCK)
+    return out, (kept if copy else None)
+
+
+class PressureDerivative:
+    """scale · ∂a/∂p by :func:`qgforce._forcing_kernels.pressure_derivative`, stored in the output dtype.
+
+    Called like the numpy path's ``(a, scale) -> DataArray`` (``fallback``, which it calls for
+    input the kernel does not take: a level axis not third from last, fewer than 3 levels, not
+    float64).  The float64 values are those of the numpy path bit for bit; a float32 result is
+    them rounded once.  On numpy input it also stores ``a`` in the output dtype while it reads
+    it, returned by :meth:`stored` (so ``a`` is not converted in a pass of its own).  On dask
+    input one kernel call per chunk, the levels made one chunk (lazy; ``stored`` gives None).
+
+    Parameters
+    ----------
+    store : numpy.dtype
+        float64 or float32.
+    threads : int
+        Threads of one call on numpy input (ranges of horizontal points); one per chunk under dask.
+    fallback : callable
+        The numpy path, ``fallback(a, scale) -> DataArray``.
+    """
+
+    def __init__(self, store: np.dtype, threads: int, fallback):
+        self.store, self.threads, self.fallback = store, threads, fallback
+        self._copies = []
+
+    @staticmethod
+    def applies(a: xr.DataArray) -> bool:
+        if a.dtype != np.float64 or LEVEL not in a.dims:
+            return False
+        return a.dims.index(LEVEL) == a.ndim - 3 and a.sizes[LEVEL] >= 3
+
+    def __call__(self, a: xr.DataArray, scale) -> xr.DataArray:
+        if not self.applies(a):
+            return self.fallback(a, scale)
+        if isinstance(scale, xr.DataArray):
+            scale = scale.transpose(*[d for d in a.dims[-2:] if d in scale.dims]).values
+        scale = np.broadcast_to(np.asarray(scale, dtype=np.float64), a.shape[-2:])
+        p = np.asarray(a[LEVEL].values, dtype=np.float64)
+        if a.chunks is None:
+            copy = self.store != np.float64
+            out, kept = _pressure_derivative(a.data, scale, p, self.store, self.threads, copy)
+            self._copies.append((a, a.copy(deep=False, data=kept) if copy else a))
+            return a.copy(deep=False, data=out)
+        import dask.array as da
+
+        data = a.chunk({LEVEL: -1}).data
+        s = da.from_array(np.ascontiguousarray(scale), chunks=data.chunks[-2:])
+        out = da.map_blocks(lambda block, sb: _pressure_derivative(block, sb, p, self.store, 1)[0], data, s,
+                            dtype=self.store, meta=np.empty((0,) * a.ndim, dtype=self.store))
+        return a.chunk({LEVEL: -1}).copy(deep=False, data=out)
+
+    def stored(self, a: xr.DataArray):
+        """``a`` in the output dtype if a call read it (numpy input), else None."""
+        return next((c for src, c in self._copies if src is a), None)

@@ -14,8 +14,9 @@ the zonal edge columns and the pole rows are handled outside the loops), with no
 branch that is not a select, so that LLVM vectorises it (``error_model="numpy"``: no
 division-by-zero checks; the arctangent is a branch-free polynomial, :func:`_atan`).
 
-The vertical terms (∂/∂p of A_η and v_g) follow in a second pass over the levels, by the labelled
-operators of :mod:`qgforce.forcing` on the float64 A_η and v_g written here.
+The vertical terms (scale·∂/∂p of A_η and v_g) follow in a second pass over the levels,
+:func:`pressure_derivative`, on the float64 A_η and v_g written here; it stores them in the output
+dtype (and A_η, v_g themselves) while the three levels it reads are in cache.
 
 The stencils are those of :mod:`qgforce._stencils`, written out with the same operations in the
 same order (centred differences as ``(a₊ − a₋)·s/(2h)``, non-uniform and one-sided weights, the
@@ -47,7 +48,7 @@ import math
 import numba
 import numpy as np
 
-__all__ = ["latlon_level", "N_OUT", "N_ROW"]
+__all__ = ["latlon_level", "pressure_derivative", "N_OUT", "N_ROW", "PRESSURE_BLOCK"]
 
 _JIT = dict(nogil=True, cache=True, error_model="numpy")
 _INNER = dict(nogil=True, error_model="numpy")
@@ -494,3 +495,66 @@ def latlon_level(T, PHI, U, V, FX, FY, full_t, full_f, local, periodic, xw, inv2
         j = pj[q]
         z = _cap(at, j, pj1[q], ccos[q], cdphi[q], carea[q]) * k_rp
         o2[j, :] = z
+
+
+#: points per block of :func:`pressure_derivative`: the three levels it reads stay in the L1/L2 cache
+PRESSURE_BLOCK = 2048
+
+
+@numba.njit(**_JIT)
+def pressure_derivative(A, idx, w, mode, inv2h, scale, out, copy, do_copy, first, last):
+    """scale · ∂A/∂p on every level, stored in ``out``'s dtype; optionally A itself stored too.
+
+    The numpy path computes ``calculus.ddp(A)`` (:func:`qgforce._stencils.first_derivative`
+    along the levels) and then multiplies by ``scale`` in place; this kernel makes the same
+    operations in the same order on each point, (A₊ − A₋)·(1/(2Δp)) on uniform levels,
+    ((A₋ w₋ + A₀ w₀) + A₊ w₊) (Fornberg 1988) on non-uniform ones and the one-sided three-point
+    form at the top and bottom, then × scale, so the float64 values are equal bit for bit and a
+    float32 ``out`` holds them rounded once.
+
+    Parameters
+    ----------
+    A : (n_lead, nz, n_point) float64, C-contiguous
+        The field, levels on axis 1, the horizontal points flattened on axis 2.
+    idx, w, mode, inv2h : (nz, 3) int64, (nz, 3) float64, (nz,) int64, float
+        The stencil of each level as :func:`qgforce._forcing_engine._axis` gives it (mode 0
+        centred uniform, 1 non-uniform interior, 2 one-sided edge).
+    scale : (n_point,) float64
+        Factor of each point (the same on every level).
+    out : (n_lead, nz, n_point) float64 or float32
+        scale · ∂A/∂p.
+    copy : (n_lead, nz, n_point) array, written only when ``do_copy``
+        A in ``copy``'s dtype (the float32 storage of A, made while A is in cache).
+    first, last : int
+        The range of points of this call (threads take disjoint ranges).
+    """
+    n_lead, nz, _ = A.shape
+    for lead in range(n_lead):
+        for b0 in range(first, last, PRESSURE_BLOCK):
+            b1 = min(b0 + PRESSURE_BLOCK, last)
+            for k in range(nz):
+                a0 = A[lead, idx[k, 0]]
+                a1 = A[lead, idx[k, 1]]
+                a2 = A[lead, idx[k, 2]]
+                o = out[lead, k]
+                m = mode[k]
+                if m == 0:
+                    for i in range(b0, b1):
+                        o[i] = ((a2[i] - a0[i]) * inv2h) * scale[i]
+                elif m == 1:
+                    wm = w[k, 0]
+                    w0 = w[k, 1]
+                    wp = w[k, 2]
+                    for i in range(b0, b1):
+                        o[i] = ((a0[i] * wm + a1[i] * w0) + a2[i] * wp) * scale[i]
+                else:
+                    e0 = w[k, 0]
+                    e1 = w[k, 1]
+                    e2 = w[k, 2]
+                    for i in range(b0, b1):
+                        o[i] = ((e0 * a0[i] + e1 * a1[i]) + e2 * a2[i]) * scale[i]
+                if do_copy:
+                    c = copy[lead, k]
+                    ak = A[lead, k]
+                    for i in range(b0, b1):
+                        c[i] = ak[i]

@@ -251,11 +251,13 @@ def _close_edges(da: xr.DataArray, grid: Grid) -> xr.DataArray:
     axes = [(grid.ydim, {0, grid.shape[0] - 1} & set(grid.pole_rows))]
     if not grid.periodic_x:
         axes.append((grid.xdim, set()))
+    axes = [(dim, poles) for dim, poles in axes
+            if da.sizes.get(dim, 0) >= 3 * n and poles != {0, da.sizes[dim] - 1}]
+    if not axes:  # periodic in x, poles at both ends of y (a global grid), or short axes
+        return da
     coords, da = da.coords, da.reset_coords(drop=True)  # 2-D latitude etc. re-attached unchanged
     for dim, poles in axes:
-        size = da.sizes.get(dim, 0)
-        if size < 3 * n or poles == {0, size - 1}:
-            continue
+        size = da.sizes[dim]
 
         def side(src):
             return [sum(w * da.isel({dim: k}, drop=True) for w, k in zip(wj, src)) for wj in weights]
@@ -676,9 +678,17 @@ def _build_vorticity_advection(ctx: _Context) -> xr.DataArray:
     )
 
 
-def _build_differential_vorticity_advection(ctx: _Context, a_eta: xr.DataArray) -> xr.DataArray:
-    term = ddp(a_eta)
-    term *= -ctx.prefactor  # in place: a fresh whole-record array is slow to fault in
+def _scaled_ddp(a: xr.DataArray, scale) -> xr.DataArray:
+    """scale · ∂a/∂p by :func:`qgforce.calculus.ddp`, scaled in place (a fresh whole-record array
+    is slow to fault in).  The compiled path's :class:`qgforce._forcing_engine.PressureDerivative`
+    makes the same operations in the same order."""
+    term = ddp(a)
+    term *= scale
+    return term
+
+
+def _build_differential_vorticity_advection(ctx: _Context, a_eta: xr.DataArray, derivative=_scaled_ddp) -> xr.DataArray:
+    term = derivative(a_eta, -ctx.prefactor)
     return _finish(
         ctx.select(term), ctx.phi, "differential_vorticity_advection",
         {**ctx.attrs(), "qgforce_prefactor": ctx.prefactor_text},
@@ -693,10 +703,9 @@ def _build_thermal_advection_term(ctx: _Context) -> xr.DataArray:
     )
 
 
-def _build_beta_term(ctx: _Context, v_north: xr.DataArray) -> xr.DataArray:
+def _build_beta_term(ctx: _Context, v_north: xr.DataArray, derivative=_scaled_ddp) -> xr.DataArray:
     beta = ctx.on_grid(ctx.grid.beta())
-    term = ddp(v_north)
-    term *= beta * ctx.prefactor
+    term = derivative(v_north, beta * ctx.prefactor)
     return _finish(
         ctx.select(term), ctx.phi, "beta_term",
         {**ctx.attrs(), "qgforce_prefactor": ctx.prefactor_text,
@@ -792,10 +801,10 @@ def _assemble(parts: dict) -> xr.Dataset:
     which costs a few centred-difference passes on a 25 x 181 x 360 grid."""
     coords = {}
     for da in parts.values():
-        for name, c in da.coords.items():
-            seen = coords.setdefault(name, c.variable)
-            if seen is not c.variable and (seen.dims != c.dims or seen.dtype != c.dtype
-                                           or not np.array_equal(seen.values, c.values)):
+        for name, c in da.coords.variables.items():  # Variables: no DataArray built per coordinate
+            seen = coords.setdefault(name, c)
+            if seen is not c and (seen.dims != c.dims or seen.dtype != c.dtype
+                                  or not np.array_equal(seen.values, c.values)):
                 return xr.Dataset(parts)
     return xr.Dataset({name: da.variable for name, da in parts.items()}, coords=coords)
 
@@ -1321,7 +1330,7 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
         with uniform longitudes and at least 4 × 4 points; numpy input, or dask input with a
         ``level`` dimension, then one kernel task per chunk, horizontal maps rechunked whole when
         split, one thread per task unless ``workers`` is given), equal to the numpy path to
-        round-off and 3–7× faster than it as measured (DEVELOPERS.md); ``"numpy"``: the labelled
+        round-off and 5–11× faster than it as measured (DEVELOPERS.md); ``"numpy"``: the labelled
         numpy operators, which run on every grid.  Default (``None``): the compiled pass where it
         applies, else numpy.
 
@@ -1349,8 +1358,10 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
 
     Notes
     -----
-    Both methods use the stencils of :mod:`qgforce._stencils`; the vertical terms are the same
-    second pass over the levels in both.
+    Both methods use the stencils of :mod:`qgforce._stencils`.  The vertical terms are a second
+    pass over the levels: :func:`qgforce.calculus.ddp` then the scaling on the numpy path, the
+    compiled :func:`qgforce._forcing_kernels.pressure_derivative` (the same operations in the same
+    order, so the same float64 numbers) on the compiled path.
     """
     temperature_wind = _check_choice(temperature_wind, _WINDS, "temperature_wind")
     frontogenesis_wind = _check_choice(frontogenesis_wind, _WINDS, "frontogenesis_wind")
@@ -1385,7 +1396,8 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
             out["v_north"] = c.v_geostrophic_north
         return out
 
-    from ._forcing_engine import OUTPUT_NAMES, compiled_applies, compiled_context, resolve_dtype
+    from ._forcing_engine import (OUTPUT_NAMES, PressureDerivative, compiled_applies, compiled_context,
+                                  resolve_dtype, resolve_threads)
 
     store = resolve_dtype(dtype)
     owned = ()
@@ -1407,8 +1419,17 @@ def forcing_terms(ds, *, temperature_wind="geostrophic", frontogenesis_wind="ful
     omitted = []
     layer = None
     if vertical:
-        h["differential_vorticity_advection"] = _build_differential_vorticity_advection(ctx, h["vorticity_advection"])
-        h["beta_term"] = _build_beta_term(ctx, v_north)
+        # the compiled pass: scale·∂/∂p stored in the output dtype, and A_η, v_g stored while read
+        derivative = PressureDerivative(store, resolve_threads(workers), _scaled_ddp) if method == "compiled" \
+            else _scaled_ddp
+        h["differential_vorticity_advection"] = _build_differential_vorticity_advection(
+            ctx, h["vorticity_advection"], derivative)
+        h["beta_term"] = _build_beta_term(ctx, v_north, derivative)
+        if method == "compiled":
+            for name in ("vorticity_advection", "v_geostrophic"):
+                kept = derivative.stored(h[name])
+                if kept is not None:
+                    h[name] = kept
     else:
         found = f"the data has {n_levels} level{'s' if n_levels != 1 else ''} ({_hpa(np.atleast_1d(ctx.level_values))})"
         omitted.append(f"differential_vorticity_advection and beta_term: their d/dp needs at least 3 pressure "

@@ -236,3 +236,44 @@ def test_kernel_arctangent_within_one_ulp_of_the_c_library():
     assert math.copysign(1.0, _atan(-0.0)) == -1.0 and _atan(0.0) == 0.0
     assert _atan(math.inf) == math.pi / 2 and _atan(-math.inf) == -math.pi / 2
     assert math.isnan(_atan(math.nan))
+
+
+@pytest.mark.parametrize("levels", ["uniform", "non-uniform"])
+@pytest.mark.parametrize("threads", [1, 3])
+def test_pressure_derivative_kernel_is_the_numpy_path_bit_for_bit(levels, threads):
+    """The compiled scale·∂/∂p (forcing's vertical terms) makes the numpy path's operations in its
+    order: float64 equal bit for bit (NaN included), float32 the float64 values rounded once, the
+    field itself stored alongside; input the kernel does not take goes to the numpy path."""
+    from qgforce._forcing_engine import PressureDerivative
+    from qgforce._forcing_kernels import PRESSURE_BLOCK
+
+    rng = np.random.default_rng(7)
+    p = (np.linspace(100000.0, 20000.0, 6) if levels == "uniform"
+         else np.array([100000.0, 92500.0, 85000.0, 70000.0, 50000.0, 30000.0]))
+    ny, nx = 37, PRESSURE_BLOCK // 16 + 5  # point ranges not multiples of the kernel's block
+    a = xr.DataArray(rng.normal(size=(2, p.size, ny, nx)) * 1e-9, dims=("time", "level", "latitude", "longitude"),
+                     coords={"level": p, "latitude": np.linspace(20.0, 70.0, ny)}, name="field")
+    a.values[1, 2, 5, 7] = np.nan
+    scale = xr.DataArray(rng.normal(size=(ny, nx)) * 1e-4, dims=("latitude", "longitude"))
+    for s in (scale, -1.03e-4):
+        ref = forcing._scaled_ddp(a, s)
+        for store in (np.float64, np.float32):
+            deriv = PressureDerivative(np.dtype(store), threads, forcing._scaled_ddp)
+            got = deriv(a, s)
+            assert got.dtype == store and got.dims == a.dims
+            np.testing.assert_array_equal(got.values, ref.values.astype(store))
+            kept = deriv.stored(a)
+            np.testing.assert_array_equal(kept.values, a.values.astype(store))
+            assert deriv.stored(ref) is None
+            # dask input: one kernel call per chunk (levels made whole), lazy until computed
+            lazy = a.chunk({"time": 1, "level": 2, "latitude": 20})
+            with dask.config.set(scheduler=_refuse_compute):
+                got = deriv(lazy, s)
+            assert got.chunks is not None and deriv.stored(lazy) is None
+            with dask.config.set(scheduler="sync"):
+                np.testing.assert_array_equal(got.values, ref.values.astype(store))
+    # level axis not third from last: the numpy path, unchanged
+    moved = a.transpose("level", "time", "latitude", "longitude")
+    deriv = PressureDerivative(np.dtype(np.float32), threads, forcing._scaled_ddp)
+    np.testing.assert_array_equal(deriv(moved, scale).values, forcing._scaled_ddp(moved, scale).values)
+    assert deriv.stored(moved) is None
