@@ -340,14 +340,19 @@ def invert_omega(
     ConvergenceError
         When the Krylov solver does not converge.
     GridError
-        Domain too small, unknown form or σ choice.
+        Domain too small.
+    OptionError
+        An unknown ``form``, ``sigma``, ``fill``, ``below_ground`` or ``boundary`` choice.
     """
     if form not in OMEGA_FORMS:
-        raise GridError(f"form must be one of {OMEGA_FORMS}; found {form!r}")
+        raise OptionError(f"form must be one of {OMEGA_FORMS}; found {form!r}")
     if sigma not in ("mean", "local"):
-        raise GridError(f"sigma must be 'mean' or 'local'; found {sigma!r}")
+        raise OptionError(f"sigma must be 'mean' or 'local'; found {sigma!r}")
     if fill not in (None, "zero"):
-        raise GridError(f"fill must be None or 'zero'; found {fill!r}")
+        raise OptionError(f"fill must be None or 'zero'; found {fill!r}")
+    if not (boundary is None or isinstance(boundary, xr.DataArray) or (isinstance(boundary, str) and boundary == "model")):
+        found = repr(boundary) if isinstance(boundary, str) else f"a {type(boundary).__name__}"
+        raise OptionError(f"boundary must be None, 'model' or a DataArray; found {found}")
     if below_ground not in BELOW_GROUND_CHOICES:
         raise OptionError(f"below_ground must be None (refuse NaN) or 'mask'; found {below_ground!r} "
                           f"(command line: --below-ground mask)")
@@ -450,11 +455,9 @@ def invert_omega(
     elif isinstance(boundary, xr.DataArray):
         bnd = boundary.sel({d: sub[d] for d in core if d in boundary.dims})
         battrs = "supplied omega on the domain edges"
-    elif boundary is None:
+    else:  # None (the choice was checked on entry)
         bnd = xr.zeros_like(temperature)
         battrs = "omega = 0 on every edge"
-    else:
-        raise GridError(f"boundary must be None, 'model' or a DataArray; found {type(boundary).__name__}")
 
     op_kwargs = dict(levels=levels, xi=grid.xi, eta=grid.eta, hx=grid.hx, hy=grid.hy, periodic_x=grid.periodic_x)
     levels_hpa = levels / 100.0

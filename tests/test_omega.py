@@ -15,7 +15,7 @@ import xarray as xr
 
 from qgforce import constants as C
 from qgforce.cases import baroclinic_wave
-from qgforce.errors import EquatorialMaskWarning, GridError, InputDataError
+from qgforce.errors import EquatorialMaskWarning, GridError, InputDataError, OptionError
 from qgforce.omega import invert_omega, lift_over_time
 
 
@@ -140,7 +140,7 @@ def test_domain_selection_and_errors():
     case = baroclinic_wave(n=16, nlev=9)
     with pytest.raises(GridError, match="at least 3"):
         invert_omega(case.ds, domain={"x": (0.0, 1e5)}, **case.options)
-    with pytest.raises(GridError, match="form must be"):
+    with pytest.raises(OptionError, match="form must be"):  # a choice: OptionError (was GridError)
         invert_omega(case.ds, form="sideways")
 
 
@@ -176,3 +176,18 @@ def test_reference_latitude_shared_by_forcing_and_operator():
     lat = case.ds["latitude"].sel(y=slice(y[2], y[-1])).values
     f0 = 2 * C.EARTH_ANGULAR_VELOCITY * np.sin(np.deg2rad(lat.mean()))
     assert f"{f0:.4e}" in res.attrs["qgforce_coriolis"]
+
+
+@pytest.mark.parametrize("option, value, allowed", [
+    ("form", "both", "form must be one of"),
+    ("sigma", "bogus", "sigma must be 'mean' or 'local'; found 'bogus'"),
+    ("fill", "nearest", "fill must be None or 'zero'; found 'nearest'"),
+    ("below_ground", "drop", "below_ground must be None"),
+    ("boundary", "edges", "boundary must be None, 'model' or a DataArray; found 'edges'"),
+])
+def test_bad_choices_are_option_errors(option, value, allowed):
+    """A choice outside its set is an OptionError (a QGForceError and a ValueError) naming the
+    option, what was found and what is allowed; nothing is solved."""
+    case = baroclinic_wave(n=16, nlev=9)
+    with pytest.raises(OptionError, match=allowed):
+        invert_omega(case.ds, **{**case.options, option: value})
