@@ -19,9 +19,14 @@ Math. Comp., 51, 699-706 (the three-point weights used here).
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 
 from .errors import GridError
+
+if TYPE_CHECKING:  # the return annotation of _meridional_operator
+    import scipy.sparse
 
 __all__ = [
     "first_derivative",
@@ -345,7 +350,7 @@ def horizontal_curl(u, v, xi, eta, hx, hy, periodic_x=False, pole_rows=()):
     return out
 
 
-def _meridional_operator(eta, hx_row, hy_row, scale_row) -> "scipy.sparse.csr_matrix":
+def _meridional_operator(eta, hx_row, hy_row, scale_row) -> scipy.sparse.csr_matrix:
     """The η part of the compact Laplacian as an (ny × ny) sparse matrix, edge rows included.
 
     Row j holds the weights of ∂η((hx/hy) ∂η ·) times ``scale_row[j]`` (= 1/(hx hy)): the flux form

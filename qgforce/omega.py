@@ -35,7 +35,7 @@ from . import constants as C
 from .errors import EquatorialMaskWarning, GridError, InputDataError, MissingVariableError, OptionError
 from .grid import Grid
 from .kinematics import DEFAULT_CORIOLIS_RULE, default_coriolis, default_f0_latitude, resolve_coriolis
-from .solver import QGOperator, floor_sigma, solve
+from .solver import QGOperator, solve
 from .thermo import mean_static_stability, omega_to_w, static_stability
 
 __all__ = ["invert_omega", "select_domain", "lift_over_time", "OMEGA_FORMS"]

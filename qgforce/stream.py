@@ -45,11 +45,9 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from ._version import __version__
 from . import constants as C
 from .errors import OptionError, QGForceError
 from .io import open_dataset
-from .output.cf import history_line
 from .output.netcdf import OUTPUT_DTYPES, PendingWrite, output_encoding, write_results  # noqa: F401 (public here)
 
 __all__ = [
@@ -158,7 +156,8 @@ def compute_record(
     >>> sorted(out.data_vars), out["omega_total"].chunks[0]
     (['omega_total', 'q_vector_forcing'], (1, 1))
     """
-    from .jobs.compute import build_results
+    from .jobs._common import _input_files
+    from .jobs.compute import build_results, file_attrs
 
     legacy = {k: v for k, v in (("forcing", forcing), ("forcing_options", forcing_options),
                                 ("omega_options", omega_options)) if v is not None}
@@ -193,15 +192,12 @@ def compute_record(
         out = _legacy_results(ds, forcing, forcing_options, omega_options, options)
     else:
         out = build_results(ds, **options)
-    out.attrs = {
-        "Conventions": "CF-1.8",
-        "title": "quasi-geostrophic forcing diagnostics and omega",
-        **{k: v for k, v in out.attrs.items() if k.startswith("qgforce_")},
-        "qgforce_version": __version__,
-        "source": _describe_sources(sources),
-        "history": history_line("compute_record", {k: options[k] for k in ("fields", "form", "coriolis")
-                                                   if k in options}),
-    }
+    # every choice of the call in history (the defaults are recorded in the qgforce_* attributes)
+    given = {**options, **legacy, **({"names": names} if names else {}),
+             **({"combine_dim": combine_dim} if combine_dim else {}), "steps_per_chunk": steps_per_chunk,
+             "levels_per_chunk": levels_per_chunk}
+    out.attrs = file_attrs(out, command="qgforce.stream.compute_record", parameters=given,
+                           sources=_input_files(ds) or [_describe_sources(sources)])
     if "qgforce_skipped_files" in ds.attrs:
         out.attrs["qgforce_skipped_files"] = ds.attrs["qgforce_skipped_files"]
     return out

@@ -44,6 +44,23 @@ def test_the_options_of_the_compute_job_choose_the_results(raw):
     for key in ("qgforce_fields", "qgforce_levels", "qgforce_region", "qgforce_form", "qgforce_coriolis"):
         assert lazy.attrs[key] == ref.attrs[key], key
     assert lazy.attrs["Conventions"] == "CF-1.8" and "compute_record" in lazy.attrs["history"]
+    # provenance: every option of the call in history (CF 2.6.2), the caution and the references, as in the
+    # compute command's files
+    first = lazy.attrs["history"].splitlines()[0]
+    for text in ("levels=[850, 500]", "region=(35, 60, 30, 180)", "equator_mask=10.0", "below_ground=mask",
+                 "form=traditional", "steps_per_chunk=1"):
+        assert text in first, (text, first)
+    assert "QG" in lazy.attrs["comment"] and lazy.attrs["references"]
+    assert lazy.attrs["source"].startswith("qgforce ") and "diagnostics of" in lazy.attrs["source"]
+
+
+def test_the_input_history_is_kept_below_the_new_line(raw, tmp_path):
+    path = tmp_path / "record.nc"
+    raw.assign_attrs(history="2026-01-01 made by a model run").to_netcdf(path)
+    out = compute_record([path], fields="temperature_advection")
+    lines = out.attrs["history"].splitlines()
+    assert "compute_record" in lines[0] and lines[1] == "2026-01-01 made by a model run"
+    assert str(path) in out.attrs["source"]
 
 
 def test_default_is_every_forcing_term_and_omega_as_before(raw):

@@ -30,7 +30,6 @@ from .profile import (
     DEFAULT_MOST_UNSTABLE_DEPTH,
     Profile,
     compiled_kernels,
-    gather,
     start_state,
 )
 

@@ -25,7 +25,7 @@ from ._common import CAUTION_TEXT, _as_list, _hpa, _input_files, _reason
 from .choices import BELOW_GROUND, CORIOLIS, FORMS, check_choice, crop, levels_pa, region_box, select_times
 
 __all__ = ["LIFTING_FIELDS", "LIFTING_HORIZON_HOURS", "build_results", "check_output_file", "atomic_output",
-           "write_netcdf", "compute_to_netcdf", "NETCDF_COMPLEVEL", "omitted_fields",
+           "write_netcdf", "compute_to_netcdf", "file_attrs", "NETCDF_COMPLEVEL", "omitted_fields",
            "FRONTOGENESIS_WITHOUT_WIND"]
 
 LIFTING_FIELDS = V.LIFTING_FIELDS
@@ -516,21 +516,49 @@ def write_netcdf(
     inputs = _input_files(results)
     path = check_output_file(path, overwrite=overwrite, inputs=inputs)
     check_choice("dtype", dtype, cf.OUTPUT_DTYPES)
+    out = results.copy(deep=False)
+    out.attrs = file_attrs(results, command=command or "qgforce.workflow.write_netcdf", parameters=parameters,
+                           sources=inputs, title=title)
+    return write_results(out, path, dtype=dtype, complevel=NETCDF_COMPLEVEL, overwrite=overwrite, progress=progress)
+
+
+def file_attrs(results: xr.Dataset, *, command: str, parameters: Mapping | None = None, sources=None,
+               title: str | None = None) -> dict:
+    """The global attributes of a results file, from the results' own (:func:`build_results`).
+
+    :func:`qgforce.output.cf.global_attrs` (``Conventions``, ``title``, ``institution``,
+    ``source``, ``history`` with a new first line above the input's, ``references``, the caution
+    as ``comment``) and the ``qgforce_*`` choices; the input's ``qgforce_input_*`` attributes go
+    into ``title``, ``source`` and ``history`` instead of being copied.
+
+    Parameters
+    ----------
+    results : xarray.Dataset
+    command : str
+        How the job was started, quoted in ``history``.
+    parameters : mapping, optional
+        The job's parameters, written in ``history`` as ``key=value`` pairs; default the choices
+        recorded in ``results.attrs``.
+    sources : sequence of str, optional
+        The input files; default ``results.attrs["qgforce_input_files"]``.
+    title : str, optional
+        Default "QG forcing diagnostics and omega of: <the input's title>".
+    """
     attrs = dict(results.attrs)
     previous = attrs.pop("qgforce_input_history", None)
     input_title = attrs.pop("qgforce_input_title", None)
     input_source = attrs.pop("qgforce_input_source", None)
     attrs.pop("qgforce_input_institution", None)
+    for key in ("Conventions", "title", "institution", "source", "history", "references", "comment"):
+        attrs.pop(key, None)  # made anew below
     if parameters is None:
         parameters = {k[len("qgforce_"):]: v for k, v in attrs.items()
                       if k in ("qgforce_fields", "qgforce_levels", "qgforce_region", "qgforce_form",
                                "qgforce_smoothing", "qgforce_coriolis")}
-    out = results.copy(deep=False)
-    out.attrs = {**cf.global_attrs(
+    return {**cf.global_attrs(
         title=title or ("QG forcing diagnostics and omega" + (f" of: {input_title}" if input_title else "")),
-        sources=inputs, command=command or "qgforce.workflow.write_netcdf", parameters=parameters,
+        sources=_input_files(results) if sources is None else sources, command=command, parameters=parameters,
         previous_history=previous, input_source=input_source, comment=CAUTION_TEXT), **attrs}
-    return write_results(out, path, dtype=dtype, complevel=NETCDF_COMPLEVEL, overwrite=overwrite, progress=progress)
 
 
 def compute_to_netcdf(ds: xr.Dataset, path, *, overwrite: bool = False, dtype: str = "float32",
