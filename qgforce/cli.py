@@ -123,7 +123,8 @@ _OPTIONS = {o.dest: o for o in (
             metavar="N"),
     _Option("prefix", ("--prefix",), "start of the section file names", "text", default="section", metavar="P"),
     _Option("member", ("--member",), "ensemble member to compute (a value of the file's member coordinate, "
-            "e.g. 0, the control in GRIB); required when the file holds several members, see 'inspect'",
+            "e.g. 0, the control in GRIB); required when the file holds several members, see 'inspect'; "
+            "'all' (compute only): every member, the file keeping the member dimension",
             "member", metavar="N"),
     _Option("step", ("--step",), "forecast step to compute, in hours (6) or with a unit (6h, 90min); required "
             "when the file holds several steps; the valid time becomes the time", "step", metavar="HOURS"),
@@ -533,8 +534,10 @@ def _run_demo(opts: dict, argv: list) -> int:
     return 0
 
 
-def _open_inputs(opts: dict, paths: list, *, on_bad_file: str = "raise", realisation: bool = True):
-    """The normalised inputs with the reading options, one member and step chosen (``realisation``)."""
+def _open_inputs(opts: dict, paths: list, *, on_bad_file: str = "raise", realisation: bool = True,
+                 every_member: bool = False):
+    """The normalised inputs with the reading options, one member and step chosen (``realisation``;
+    ``--member all`` where ``every_member``)."""
     from .jobs.choices import choose_realisation
     from .jobs.describe import open_inputs
 
@@ -543,7 +546,7 @@ def _open_inputs(opts: dict, paths: list, *, on_bad_file: str = "raise", realisa
     if not realisation:
         return ds
     try:
-        return choose_realisation(ds, member=opts.get("member"), step=opts.get("step"))
+        return choose_realisation(ds, member=opts.get("member"), step=opts.get("step"), every_member=every_member)
     except BaseException:
         ds.close()
         raise
@@ -553,7 +556,8 @@ def _run_inspect(opts: dict, argv: list) -> int:
     from .jobs.describe import describe_inputs, expand_sources
 
     paths = expand_sources(_need_files(opts, "inspect"))
-    ds = _open_inputs(opts, paths, realisation=opts.get("member") is not None or opts.get("step") is not None)
+    ds = _open_inputs(opts, paths, realisation=opts.get("member") is not None or opts.get("step") is not None,
+                      every_member=True)
     try:
         print(describe_inputs(ds, paths).text(), flush=True)
     finally:
@@ -596,7 +600,7 @@ def _run_compute(opts: dict, argv: list) -> int:
     check_output_file(opts["output"], overwrite=bool(opts["overwrite"]), inputs=paths)
     from .stream import client_from
 
-    ds = _open_inputs(opts, paths, on_bad_file="skip" if opts.get("skip_bad_files") else "raise")
+    ds = _open_inputs(opts, paths, on_bad_file="skip" if opts.get("skip_bad_files") else "raise", every_member=True)
     try:
         parameters = {"files": " ".join(paths), **_parameters(opts, (
             "output", "fields", "levels", "times", "region", "form", "smoothing", "coriolis", "f0_latitude",
@@ -616,8 +620,12 @@ def _run_compute(opts: dict, argv: list) -> int:
         print(f"wrote {path}", flush=True)
     else:
         names = list(results.data_vars)
+        from .io import forecast_axes
+
+        member = forecast_axes(results)["member"]
         tdim = "time" if "time" in results.dims else None
-        shape = (f"{results.sizes[tdim]} time(s) x " if tdim else "") + f"{results.sizes['level']} level(s)"
+        shape = ((f"{results.sizes[member]} member(s) x " if member in results.dims else "")
+                 + (f"{results.sizes[tdim]} time(s) x " if tdim else "") + f"{results.sizes['level']} level(s)")
         lines = [
             f"wrote {path} ({path.stat().st_size / 1e6:.1f} MB): {len(names)} variable(s) on {shape}, "
             f"{results.attrs.get('qgforce_region', 'whole grid')}, omega form {results.attrs.get('qgforce_form')}",

@@ -67,20 +67,35 @@ def library_terms(ds, **kwargs):
 def five_level_global(tmp_path_factory) -> Path:
     """A global 5-level file from member 0, first time of the subset: T and Φ linear in ln p between
     850 and 500 hPa (a little beyond them at 925 and 400 hPa), written as plain CF NetCDF."""
-    ds = quiet_open(NC).isel(number=0, time=[0])
+    five = _five_levels(quiet_open(NC).isel(number=0, time=[0]))
+    path = tmp_path_factory.mktemp("global") / "era5_five_levels.nc"
+    five.drop_vars([c for c in ("number", "step") if c in five.coords]).to_netcdf(path)
+    return path
+
+
+def _five_levels(ds: xr.Dataset) -> xr.Dataset:
+    """T and Φ linear in ln p between the subset's 850 and 500 hPa, on 925, 850, 700, 500 and 400 hPa."""
     p = ds["level"].values
     new = np.array([92500.0, 85000.0, 70000.0, 50000.0, 40000.0])
     w = xr.DataArray((np.log(new) - np.log(p[0])) / (np.log(p[1]) - np.log(p[0])), dims="level",
                      coords={"level": new})
     lo, hi = ds.isel(level=0, drop=True), ds.isel(level=1, drop=True)
     five = lo[["temperature", "geopotential"]] * (1 - w) + hi[["temperature", "geopotential"]] * w
-    five = five.transpose("time", "level", "latitude", "longitude").assign_coords(valid_time=ds["valid_time"])
+    lead = [d for d in ("number", "time") if d in five.dims]
+    five = five.transpose(*lead, "level", "latitude", "longitude").assign_coords(valid_time=ds["valid_time"])
     for name in five.data_vars:
         five[name].attrs = {"units": ds[name].attrs["units"], "standard_name": ds[name].attrs.get("standard_name",
                                                                                                   name)}
     five["level"].attrs = {"units": "Pa", "standard_name": "air_pressure", "positive": "down"}
-    path = tmp_path_factory.mktemp("global") / "era5_five_levels.nc"
-    five.drop_vars([c for c in ("number", "step") if c in five.coords]).to_netcdf(path)
+    return five
+
+
+@pytest.fixture(scope="module")
+def five_level_members(tmp_path_factory) -> Path:
+    """Both members of the subset, first time, on the five levels of :func:`_five_levels`."""
+    five = _five_levels(quiet_open(NC).isel(time=[0]))
+    path = tmp_path_factory.mktemp("members") / "era5_five_levels_members.nc"
+    five.drop_vars([c for c in ("step",) if c in five.coords]).to_netcdf(path)
     return path
 
 
@@ -106,6 +121,53 @@ def test_member_chooses_one_realisation_like_the_library(tmp_path, capsys):
         for name in ("temperature_advection", "q_vector_forcing"):
             np.testing.assert_allclose(got[name].values, ref[name].values, rtol=1e-12, equal_nan=True)
             assert np.isfinite(got[name].values).sum() > 1000
+
+
+def test_every_member_keeps_the_member_dimension(tmp_path, capsys):
+    """--member all: one file with the member dimension, each member what --member N gives (the
+    forcing terms of the GRIB subset against the library on each member)."""
+    out = tmp_path / "all.nc"
+    status, stdout, err = cli(capsys, "compute", GRIB, "--member", "all", "-o", out, "--dtype", "float64",
+                              "--fields", "temperature_advection,q_vector_forcing")
+    assert status == 0, err
+    assert "2 member(s) x 2 time(s) x 2 level(s)" in stdout
+    with xr.open_dataset(out) as got:
+        assert got["q_vector_forcing"].dims[:2] == ("number", "time")
+        assert got["number"].values.tolist() == [0, 1]
+        assert "member=all" in got.attrs["history"]
+        for member in (0, 1):
+            ref = library_terms(qio.select_realisation(quiet_open(GRIB), member=member))
+            for name in ("temperature_advection", "q_vector_forcing"):
+                np.testing.assert_allclose(got[name].sel(number=member).values, ref[name].values, rtol=1e-12,
+                                           equal_nan=True, err_msg=f"{name} member {member}")
+
+
+def test_every_member_omega_is_each_members_omega(tmp_path, capsys, five_level_members):
+    """ω of every member in one run equals the one-member runs (the inversion works member by member)."""
+    both, one = tmp_path / "both.nc", tmp_path / "one.nc"
+    common = ["--fields", "omega_total", "--dtype", "float64"]
+    status, _, err = cli(capsys, "compute", five_level_members, "--member", "all", "-o", both, *common)
+    assert status == 0, err
+    status, _, err = cli(capsys, "compute", five_level_members, "--member", "1", "-o", one, *common)
+    assert status == 0, err
+    with xr.open_dataset(both) as a, xr.open_dataset(one) as b:
+        assert a["omega_total"].sizes["number"] == 2
+        np.testing.assert_allclose(a["omega_total"].sel(number=1).values, b["omega_total"].values, rtol=1e-10,
+                                   atol=1e-14, equal_nan=True)
+        assert np.isfinite(b["omega_total"].values).sum() > 1000
+        # the members differ: each was solved with its own forcing
+        assert not np.allclose(a["omega_total"].sel(number=0).values, b["omega_total"].values, equal_nan=True)
+
+
+@pytest.mark.parametrize("command", ["maps", "section"])
+def test_every_member_is_for_compute_only(tmp_path, capsys, command):
+    target = (["--output-dir", tmp_path / "out"] + (["--start", "30,-40", "--end", "70,10"]
+                                                    if command == "section" else []))
+    status, _, err = cli(capsys, command, GRIB, "--member", "all", *target)
+    assert_user_error(status, err, "--member all", "only 'compute'", "--member N")
+    assert not list(tmp_path.iterdir())
+    status, stdout, err = cli(capsys, "inspect", GRIB)
+    assert status == 0 and "--member all" in stdout
 
 
 def test_member_and_step_from_the_config(tmp_path, capsys):

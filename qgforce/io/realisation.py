@@ -64,7 +64,14 @@ def forecast_axes(ds: xr.Dataset) -> dict:
     }
 
 
+#: ``member=`` value that keeps every member (the member axis stays a dimension of the results)
+EVERY_MEMBER = "all"
+
+
 def _pick(ds, axis: str | None, value, what: str, keyword: str):
+    if keyword == "member" and isinstance(value, str) and value.strip().lower() == EVERY_MEMBER and not (
+            axis is not None and EVERY_MEMBER in [str(v).lower() for v in np.atleast_1d(ds[axis].values)]):
+        return ds  # every member (unless a member is labelled "all")
     if value is None:
         if axis is not None and axis in ds.dims and ds.sizes[axis] > 1:
             shown = ", ".join(_text(v) for v in ds[axis].values[:30])
@@ -112,7 +119,8 @@ def select_realisation(ds: xr.Dataset, member=None, step=None) -> xr.Dataset:
         Raw or normalised model output.
     member : int, optional
         Value of the member coordinate (``number`` in GRIB: 0 is the control).  Needed when
-        there are several members.
+        there are several members; ``"all"`` (:data:`EVERY_MEMBER`) keeps every member, the
+        member axis then staying a dimension (the diagnostics work member by member).
     step : number (hours), str or numpy.timedelta64, optional
         Forecast step (``6``, ``"6h"``, ``np.timedelta64(6, "h")``).  Needed when there are
         several steps.
@@ -120,7 +128,8 @@ def select_realisation(ds: xr.Dataset, member=None, step=None) -> xr.Dataset:
     Returns
     -------
     xarray.Dataset
-        Without the member and step dimensions (they stay as scalar coordinates).  When the
+        Without the member and step dimensions (they stay as scalar coordinates; the member
+        dimension stays with ``member="all"``).  When the
         valid time varies along a remaining dimension (``time``: the reference times), it
         becomes that dimension's coordinate, renamed ``time`` (the reference time is kept as
         ``forecast_reference_time``); a scalar valid time (one reference time, one step) becomes

@@ -255,7 +255,7 @@ def step_value(value):
     return delta.total_seconds() / 3600.0
 
 
-def choose_realisation(ds: xr.Dataset, member=None, step=None) -> xr.Dataset:
+def choose_realisation(ds: xr.Dataset, member=None, step=None, every_member: bool = False) -> xr.Dataset:
     """One ensemble member and one forecast step of ``ds``, the valid time as its time coordinate.
 
     :func:`qgforce.io.select_realisation` with the jobs' words: its errors carry the hints
@@ -267,16 +267,26 @@ def choose_realisation(ds: xr.Dataset, member=None, step=None) -> xr.Dataset:
         A normalised dataset.
     member, step : optional
         See :func:`member_value`, :func:`step_value`.  Required when the data hold several
-        members (several steps): a job computes one realisation.
+        members (several steps): a job computes one realisation, or, with ``member="all"``
+        where ``every_member`` allows it, every member (the member axis stays a dimension).
+    every_member : bool
+        Whether the job takes ``member="all"`` (the compute job, whose file keeps the member
+        dimension); the jobs that draw one map or section per field refuse it.
 
     Raises
     ------
     InputDataError
         Several members (steps) and none chosen, or a value not in the data; each lists the
         values available.
+    OptionError
+        ``member="all"`` for a job that draws one member.
     """
-    from ..io import select_realisation
+    from ..io import EVERY_MEMBER, select_realisation
 
+    if not every_member and isinstance(member, str) and member.strip().lower() == EVERY_MEMBER:
+        raise OptionError("--member all keeps every ensemble member, which only 'compute' writes (one file with "
+                          "the member dimension); maps and sections draw one member: choose one with --member N "
+                          "(see 'inspect' for the members)")
     try:
         return select_realisation(ds, member=member, step=step)
     except InputDataError as exc:

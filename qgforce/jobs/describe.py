@@ -165,8 +165,9 @@ class InputDescription:
         for key, what, option in (("member", "ensemble members", "--member"), ("step", "forecast steps", "--step")):
             values = r.get(f"{key}_values") or []
             if r.get(key) and len(values) > 1:
+                every = "; compute takes every member with --member all" if key == "member" else ""
                 out.append(f"{what}: {len(values)} ({r[key]}: {', '.join(_few(values, 12))}); a job computes one, "
-                           f"chosen with {option}")
+                           f"chosen with {option}{every}")
             elif r.get(key) and values:
                 out.append(f"{what[:-1]}: {values[0]} ({r[key]})")
         for dim, size in self.extra_dims.items():
