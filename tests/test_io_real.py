@@ -20,6 +20,7 @@ import xarray as xr
 import qgforce
 import qgforce.io as qio
 from qgforce.constants import EARTH_ANGULAR_VELOCITY, EARTH_RADIUS, GRAVITY
+from qgforce.errors import InputDataError
 from qgforce.errors import DataQualityWarning, InputDataError, OptionError, QGForceError, UnitsError
 
 DATA = Path(__file__).parent / "data"
@@ -335,6 +336,34 @@ def test_several_grib_files_combine_like_one(tmp_path):
     xr.testing.assert_identical(qio.open_dataset(paths[::-1], chunks=None), whole)  # by time values
     xr.testing.assert_identical(qio.open_dataset(str(tmp_path / "part_*.grib"), chunks=None), whole)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["part_0000.grib", "part_1200.grib"]  # no index files
+
+
+def test_overlapping_grib_files_go_through_the_duplicates_policy(tmp_path):
+    """A file of both times beside a file of the second time again (one time: a scalar coordinate
+    in cfgrib): the repeat is an error naming the policy, and keep_first gives the whole file's
+    values; the default chunking works on files of different dimensions."""
+    import eccodes
+
+    both, again = bytearray(), bytearray()
+    with open(GRIB, "rb") as handle:
+        while (gid := eccodes.codes_grib_new_from_file(handle)) is not None:
+            message = eccodes.codes_get_message(gid)
+            both += message
+            if eccodes.codes_get(gid, "dataTime") == 1200:
+                again += message
+            eccodes.codes_release(gid)
+    paths = [tmp_path / "both.grib", tmp_path / "again.grib"]
+    paths[0].write_bytes(bytes(both))
+    paths[1].write_bytes(bytes(again))
+    with pytest.raises(InputDataError, match=r"1 repeated value\(s\) of 'time'.*keep_first"):
+        qio.open_dataset(paths, chunks=None)
+    whole = qio.open_dataset(GRIB, chunks=None)
+    for chunks in (None, "auto"):
+        kept = qio.open_dataset(paths, chunks=chunks, duplicates="keep_first")
+        assert kept["time"].values.tolist() == whole["time"].values.tolist()
+        for name in ("temperature", "geopotential"):
+            np.testing.assert_array_equal(kept[name].values, whole[name].values, err_msg=name)
+        np.testing.assert_array_equal(kept["valid_time"].values, whole["valid_time"].values)
 
 
 def test_real_forecast_steps_selected_by_valid_time():

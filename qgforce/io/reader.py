@@ -32,32 +32,72 @@ def _promote_scalar_axes(parts: list) -> list:
     """Make the GRIB axes that hold one value per file, but differ between files, dimensions.
 
     cfgrib gives a file of one reference time a scalar ``time``; files to be combined along it
-    need it as a dimension.  The other scalar coordinates that differ between the files
-    (``valid_time``) go along the first promoted dimension, so none is silently taken from the
-    first file.
+    need it as a dimension.  An axis that is a dimension in some files and a scalar in others
+    (a file of two times beside a file of one) becomes a dimension of length 1 in the latter.
+    The other scalar coordinates that go with the first promoted axis (``valid_time``) go along
+    it, so none is silently taken from the first file.
     """
-    def differs(name):
-        return all(name in p.coords and p[name].ndim == 0 for p in parts) and len(
-            {p[name].values.item() for p in parts}) > 1
+    def scalar(p, name):
+        return name in p.coords and p[name].ndim == 0
 
-    promoted = [name for name in _GRIB_AXES if differs(name)]
+    def promote(name):
+        if not all(name in p.coords for p in parts) or not any(scalar(p, name) for p in parts):
+            return False
+        return any(name in p.dims for p in parts) or len({p[name].values.item() for p in parts}) > 1
+
+    promoted = [name for name in _GRIB_AXES if promote(name)]
     if not promoted:
         return parts
-    riders = [str(n) for n in parts[0].coords if n not in promoted and parts[0][n].ndim == 0 and differs(n)]
-    parts = [p.expand_dims(promoted) for p in parts]
-    parts = [p.assign_coords({n: (promoted[0], [p[n].values], p[n].attrs) for n in riders}) for p in parts]
-    return [p.transpose(*[d for d in _GRIB_AXES if d in p.dims], ...) for p in parts]  # cfgrib's order
+    first = promoted[0]
+
+    def rider(name):  # a scalar coordinate of the files that varies with the promoted axis
+        if name in promoted or name in _GRIB_AXES or not all(name in p.coords for p in parts):
+            return False
+        return any(p[name].dims == (first,) for p in parts) or (
+            all(scalar(p, name) for p in parts) and len({p[name].values.item() for p in parts}) > 1)
+
+    riders = [str(n) for n in parts[0].coords if rider(n)]
+    out = []
+    for p in parts:
+        grown = [n for n in promoted if scalar(p, n)]
+        p = p.expand_dims(grown) if grown else p
+        if first in grown:
+            p = p.assign_coords({n: (first, np.atleast_1d(p[n].values), p[n].attrs) for n in riders if scalar(p, n)})
+        out.append(p.transpose(*[d for d in _GRIB_AXES if d in p.dims], ...))  # cfgrib's order
+    return out
+
+
+def _repeated_date_dim(datasets) -> str | None:
+    """A date dimension whose values repeat across the datasets (overlapping files), or None.
+
+    Combining by coordinates would refuse such files, or keep one of the repeated steps without a
+    word; the caller concatenates them in the order given instead, so that the duplicates policy
+    of :func:`normalize` sees every repeat.
+    """
+    seen: dict = {}
+    for ds in datasets:
+        for dim in ds.dims:
+            if dim in ds.coords and np.issubdtype(ds[dim].dtype, np.datetime64):
+                values = set(ds[dim].values.tolist())
+                if values & seen.setdefault(dim, set()):
+                    return str(dim)
+                seen[dim] |= values
+    return None
 
 
 def _open_grib_files(paths, chunks, names, combine_dim) -> xr.Dataset:
     """Open GRIB files once each (the inventory is read once), chunk, and combine them."""
     parts = [open_grib(p, chunks=None) for p in paths]
+    if len(parts) > 1:
+        parts = _promote_scalar_axes(parts)
+        if combine_dim is None:
+            combine_dim = _repeated_date_dim(parts)
     spec = _auto_chunks(parts[0], names) if chunks == "auto" else chunks
-    if spec is not None:
-        parts = [part.chunk(spec) for part in parts]
+    if spec is not None:  # each file the chunks of its own dimensions
+        parts = [part.chunk({d: c for d, c in spec.items() if d in part.dims}) if isinstance(spec, Mapping)
+                 else part.chunk(spec) for part in parts]
     if len(parts) == 1:
         return parts[0]
-    parts = _promote_scalar_axes(parts)
     try:
         if combine_dim is None:
             return xr.combine_by_coords(parts, data_vars="minimal", coords="minimal", compat="override",
@@ -212,22 +252,13 @@ def open_dataset(
 
 
 def _repeated_time_dim(paths, engine) -> str | None:
-    """A date dimension whose values repeat across the files (overlapping files), or None.
+    """:func:`_repeated_date_dim` of the files (their coordinates only are read)."""
+    def handles():
+        for path in paths:
+            with _open_one(path, engine) as handle:  # lazy
+                yield handle
 
-    Combining by coordinates would keep one of the repeated steps without a word; the caller
-    concatenates such files in the order given instead, so that the duplicates policy of
-    :func:`normalize` sees every repeat.
-    """
-    seen: dict = {}
-    for path in paths:
-        with _open_one(path, engine) as handle:  # lazy: the coordinates only are read
-            for dim in handle.dims:
-                if dim in handle.coords and np.issubdtype(handle[dim].dtype, np.datetime64):
-                    values = set(handle[dim].values.tolist())
-                    if values & seen.setdefault(dim, set()):
-                        return str(dim)
-                    seen[dim] |= values
-    return None
+    return _repeated_date_dim(handles())
 
 
 def _open_many(paths, engine, chunks, combine_dim) -> xr.Dataset:
