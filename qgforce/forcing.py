@@ -247,29 +247,50 @@ def _close_edges(da: xr.DataArray, grid: Grid) -> xr.DataArray:
     axes and pole rows are left alone; axes shorter than 9 points are left alone.
     """
     n = EDGE_CLOSURE_ROWS
-    weights = [((j - 4) * (j - 5) / 2.0, -(j - 3) * (j - 5), (j - 3) * (j - 4) / 2.0) for j in range(n)]
     axes = [(grid.ydim, {0, grid.shape[0] - 1} & set(grid.pole_rows))]
     if not grid.periodic_x:
         axes.append((grid.xdim, set()))
-    axes = [(dim, poles) for dim, poles in axes
-            if da.sizes.get(dim, 0) >= 3 * n and poles != {0, da.sizes[dim] - 1}]
-    if not axes:  # periodic in x, poles at both ends of y (a global grid), or short axes
+    plan = tuple((da.dims.index(dim), 0 not in poles, da.sizes[dim] - 1 not in poles) for dim, poles in axes
+                 if da.sizes.get(dim, 0) >= 3 * n and poles != {0, da.sizes[dim] - 1})
+    if not plan:  # periodic in x, poles at both ends of y (a global grid), or short axes
         return da
-    coords, da = da.coords, da.reset_coords(drop=True)  # 2-D latitude etc. re-attached unchanged
-    for dim, poles in axes:
-        size = da.sizes[dim]
+    if da.chunks is None:
+        return da.copy(deep=False, data=_close_block(da.data.copy(), plan))
+    # dask: one task per chunk, the closed axes made one chunk each (the data only: the coordinates stay as given)
+    whole = da.data.rechunk({axis: -1 for axis, _, _ in plan})
+    closed = whole.map_blocks(_close_block, plan=plan, copy=True, dtype=da.dtype,
+                              meta=np.empty((0,) * da.ndim, dtype=da.dtype))
+    return da.copy(deep=False, data=closed)
 
-        def side(src):
-            return [sum(w * da.isel({dim: k}, drop=True) for w, k in zip(wj, src)) for wj in weights]
 
-        low = side((3, 4, 5)) if 0 not in poles else [da.isel({dim: j}, drop=True) for j in range(n)]
-        high = side((size - 4, size - 5, size - 6))[::-1] if size - 1 not in poles else [
-            da.isel({dim: size - n + j}, drop=True) for j in range(n)]
-        parts = [*low, da.isel({dim: slice(n, size - n)}).drop_vars(dim, errors="ignore"), *high]
-        closed = xr.concat([p if dim in p.dims else p.expand_dims(dim) for p in parts], dim=dim,
-                           coords="minimal", compat="override", join="override")
-        da = closed.transpose(*da.dims).assign_coords({dim: da[dim]} if dim in da.coords else {})
-    return da.assign_coords(coords)
+#: weights of f_3, f_4, f_5 (or f_{n-4}, f_{n-5}, f_{n-6}) of the closed rows j = 0, 1, 2 (Python numbers, so
+#: that a float32 field is closed in float32 as stored)
+_CLOSURE_WEIGHTS = tuple(((j - 4) * (j - 5) / 2.0, -(j - 3) * (j - 5), (j - 3) * (j - 4) / 2.0)
+                         for j in range(EDGE_CLOSURE_ROWS))
+
+
+def _close_block(a: np.ndarray, plan, copy: bool = False) -> np.ndarray:
+    """The closure of :func:`_close_edges` on a numpy block, in place (``copy``: on a copy).
+
+    ``plan``: (axis, close the low end, close the high end) per axis, in order (the second axis
+    closes the first one's closed rows too).  The rows read (3–5 from each end) are not written,
+    since each axis has at least 9 points.
+    """
+    if copy:
+        a = a.copy()
+
+    def row(axis, k):
+        return (slice(None),) * axis + (k,)
+
+    for axis, low, high in plan:
+        m = a.shape[axis]
+        for closed, src, target in ((low, (3, 4, 5), lambda j: j), (high, (m - 4, m - 5, m - 6), lambda j: m - 1 - j)):
+            if not closed:
+                continue
+            f3, f4, f5 = (a[row(axis, k)] for k in src)
+            for j, (w3, w4, w5) in enumerate(_CLOSURE_WEIGHTS):
+                a[row(axis, target(j))] = w3 * f3 + w4 * f4 + w5 * f5
+    return a
 
 
 # ============================================================================ fused pointwise kernels
