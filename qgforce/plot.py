@@ -599,24 +599,63 @@ def _fill_levels(values, fstyle, levels, interval, robust_percentile, symmetric)
     return np.linspace(vmin, vmax, _AUTO_BANDS + 1), signed
 
 
-def _native_coords(ax, lon, lat, geo: bool):
-    """Grid coordinates to draw with, and the transform keywords.
+def _native_coords(ax, lon, lat, values, geo: bool, seam: bool = True):
+    """Grid coordinates and values to draw with, and the transform keywords.
 
-    On a GeoAxes in a projection other than Plate Carrée the grid points are projected once,
-    vectorised, and drawn in the map's own coordinates (cartopy's per-polygon projection of
-    filled contours costs seconds per panel); in Plate Carrée cartopy's own transform is cheap.
+    On a GeoAxes the grid is drawn in the map's own coordinates, so that cartopy passes the
+    contour paths through instead of projecting each polygon with shapely (seconds per panel on
+    a noisy global field; it does so whenever the data's transform differs from the map's, a
+    Plate Carrée of another central longitude included).  In a Plate Carrée map the longitudes
+    become the map's x (shifted by its central longitude into [−180°, 180°), the columns put in
+    increasing order, and on a periodic grid, with ``seam``, the values at the ±180° seam
+    interpolated linearly between the two columns beside it, so filled contours leave no gap;
+    grid cells need no seam column); in other projections the grid
+    points are projected once, vectorised.  Where neither applies (points outside the
+    projection's domain, irregular longitudes), cartopy's own transform.
     """
     if not geo:
-        return lon, lat, {}
+        return lon, lat, values, {}
     ccrs = _cartopy_crs()
     pc = ccrs.PlateCarree()
     if isinstance(ax.projection, ccrs.PlateCarree):
-        return lon, lat, {"transform": pc}
+        if np.ndim(lon) == 1:
+            # the map's central longitude: where the map puts longitude 0 (its proj4 "lon_0" or "pm")
+            central = -float(ax.projection.transform_point(0.0, 0.0, pc)[0])
+            shifted = _plate_carree_columns(lon, values, central, seam)
+            if shifted is not None:
+                return shifted[0], lat, shifted[1], {"transform": ax.projection}
+        return lon, lat, values, {"transform": pc}
     lon2, lat2 = np.meshgrid(lon, lat) if np.ndim(lon) == 1 else (lon, lat)
     xy = ax.projection.transform_points(pc, lon2, lat2)
     if not np.isfinite(xy[..., :2]).all():  # a point outside the projection's domain: let cartopy cut
-        return lon, lat, {"transform": pc}
-    return xy[..., 0], xy[..., 1], {"transform": ax.projection}
+        return lon, lat, values, {"transform": pc}
+    return xy[..., 0], xy[..., 1], values, {"transform": ax.projection}
+
+
+def _plate_carree_columns(lon, values, central_longitude: float, seam: bool = True):
+    """(x, values) of a lat–lon grid in a Plate Carrée map centred on ``central_longitude``, or None.
+
+    x = ((λ − λ0 + 180°) mod 360°) − 180°, columns sorted by x; a grid covering the whole circle
+    with uniform spacing gets the seam columns x = −180° and x = 180° (linear interpolation
+    between the last and the first column).  None when the shifted longitudes are not strictly
+    increasing once sorted (repeated longitudes).
+    """
+    lon = np.asarray(lon, dtype=np.float64)
+    x = (lon - central_longitude + 180.0) % 360.0 - 180.0
+    order = np.argsort(x, kind="stable")
+    x, values = x[order], np.asarray(values)[..., order]
+    if x.size < 2 or not np.all(np.diff(x) > 0):
+        return None
+    step = np.diff(x)
+    gap = x[0] + 360.0 - x[-1]  # the seam's width on a periodic grid
+    if seam and np.allclose(step, step[0], rtol=1e-6) and np.isclose(gap, step[0], rtol=1e-6):
+        w = (180.0 - x[-1]) / gap  # the seam value between the last column and the first one (+360°)
+        seam = values[..., -1:] * (1.0 - w) + values[..., :1] * w
+        if x[0] > -180.0:
+            x, values = np.concatenate([[-180.0], x]), np.concatenate([seam, values], axis=-1)
+        if x[-1] < 180.0:
+            x, values = np.concatenate([x, [180.0]]), np.concatenate([values, seam], axis=-1)
+    return x, values
 
 
 def _draw_fill(ax, lon, lat, values, lv, cmap, style, tkw):
@@ -695,15 +734,15 @@ def _draw_map(ax, field, *, contours, contour_interval, vectors, vector_stride, 
         lv = lv[lv <= float(horizon)]  # no colour for times the lifting never reached
     if cmap is None:
         cmap = fstyle.cmap if fstyle is not None else (_SIGNED_CMAP if signed else _UNSIGNED_CMAP)
-    x, y, tkw = _native_coords(ax, lon, lat, geo)
-    mesh, ext = _draw_fill(ax, x, y, values, lv, cmap, style, tkw)
+    x, y, drawn, tkw = _native_coords(ax, lon, lat, values, geo, seam=style != "cells")
+    mesh, ext = _draw_fill(ax, x, y, drawn, lv, cmap, style, tkw)
     art = PlotArtists(ax=ax, mesh=mesh, colorbar=_fill_colour_bar(fig, mesh, ax, field, fstyle, lv, ext))
     height_interval = None
     if contours is not None:
         cfield = _map_field_2d(contours, "contours")
         clon, clat = _lonlat(cfield)
-        cx, cy, ckw = _native_coords(ax, clon, clat, geo)
         cvalues, _, is_height = _contour_display(cfield)
+        cx, cy, cvalues, ckw = _native_coords(ax, clon, clat, cvalues, geo)
         interval_c = contour_interval if contour_interval is not None else (6.0 if is_height else None)
         art.contours, art.contour_labels = _draw_contours(
             ax, cx, cy, cvalues, _contour_levels(cvalues, interval_c), ckw)

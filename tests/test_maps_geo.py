@@ -262,3 +262,64 @@ def test_summary_layout_no_empty_slot_centred_last_row_colour_bars_beside_panels
     assert "valid 2051-02-03 06:00 UTC" in fig._suptitle.get_text()
     with pytest.raises(OptionError, match="unknown setting"):
         plot.summary_figure(ds, projection=False, options={"omega_total": {"colour": "red"}})
+
+
+def _raster(ax_fill, central, lon, lat, values):
+    """A filled-contour raster (RGB array) of one Plate Carrée map, drawn by ``ax_fill(ax, ...)``."""
+    import cartopy.crs as ccrs
+
+    fig = plt.figure(figsize=(4.0, 2.0), dpi=60)
+    ax = fig.add_axes([0, 0, 1, 1], projection=ccrs.PlateCarree(central_longitude=central))
+    ax.set_global()
+    ax_fill(ax, lon, lat, values)
+    ax.set_axis_off()
+    fig.canvas.draw()
+    rgb = np.asarray(fig.canvas.buffer_rgba())[..., :3].astype(int)
+    plt.close(fig)
+    return rgb
+
+
+@pytest.mark.parametrize("central", [180.0, 0.0, -100.0, 37.5])
+@pytest.mark.parametrize("lon0", [0.0, -180.0, 1.25])
+def test_plate_carree_maps_draw_in_map_coordinates_where_cartopy_would(central, lon0):
+    """A global field drawn in the map's own x (no per-polygon projection, the fast path) gives the
+    picture cartopy's own transform gives (the reference: cartopy projecting the same contours from
+    Plate Carrée), for several central longitudes and grids starting at 0°, −180° and 1.25°; a
+    field that is not symmetric in longitude, so a shift of the columns would show."""
+    pytest.importorskip("cartopy")
+    import cartopy.crs as ccrs
+
+    lon = lon0 + np.arange(144) * 2.5
+    lat = np.linspace(-90.0, 90.0, 73)
+    lam, phi = np.meshgrid(np.deg2rad(lon), np.deg2rad(lat))
+    values = np.sin(lam) * np.cos(phi) + 0.6 * np.cos(2 * lam - 0.5) * np.cos(phi) ** 2 + 0.3 * np.sin(phi)
+    levels = np.linspace(-1.6, 1.6, 9)
+
+    def reference(ax, lon, lat, values):
+        ax.contourf(lon, lat, values, levels=levels, cmap="RdBu_r", transform=ccrs.PlateCarree())
+
+    def ours(ax, lon, lat, values):
+        x, y, v, tkw = plot._native_coords(ax, lon, lat, values, True)
+        assert tkw["transform"] is ax.projection  # the map's own coordinates
+        assert x[0] == -180.0 and x[-1] == 180.0 and np.all(np.diff(x) > 0)  # the seam filled on both sides
+        ax.contourf(x, y, v, levels=levels, cmap="RdBu_r", **tkw)
+
+    a, b = _raster(reference, central, lon, lat, values), _raster(ours, central, lon, lat, values)
+    differ = (np.abs(a - b).sum(axis=-1) > 60).mean()
+    assert differ < 0.01, differ  # contour edges may move by a pixel; a shifted column would move a third
+
+
+def test_plate_carree_columns_and_the_seam():
+    """x = ((λ − λ0 + 180°) mod 360°) − 180°, increasing; the seam value linear between its two columns."""
+    lon = np.array([0.0, 90.0, 180.0, 270.0])
+    values = np.array([[0.0, 1.0, 2.0, 3.0]])
+    x, v = plot._plate_carree_columns(lon, values, 45.0)
+    # columns at −45, 45, 135 (λ = 0, 90, 180) and −135 (λ = 270); the seam at ±180 lies between
+    # λ = 180 (x = 135) and λ = 270 (x = −135 + 360 = 225), halfway: 2.5
+    np.testing.assert_allclose(x, [-180.0, -135.0, -45.0, 45.0, 135.0, 180.0])
+    np.testing.assert_allclose(v, [[2.5, 3.0, 0.0, 1.0, 2.0, 2.5]])
+    x, v = plot._plate_carree_columns(lon, values, 45.0, seam=False)  # grid cells: no seam column
+    np.testing.assert_allclose(x, [-135.0, -45.0, 45.0, 135.0])
+    regional = plot._plate_carree_columns(np.array([160.0, 170.0, 180.0, 190.0]), values, 180.0)
+    np.testing.assert_allclose(regional[0], [-20.0, -10.0, 0.0, 10.0])  # not periodic: no seam
+    assert plot._plate_carree_columns(np.array([0.0, 0.0, 10.0, 20.0]), values, 0.0) is None
