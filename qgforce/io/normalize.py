@@ -411,8 +411,8 @@ def _drop_duplicate_times(ds: xr.Dataset, duplicates: str) -> xr.Dataset:
         listing = ", ".join(str(v) for v in repeated[:20]) + (" ..." if len(repeated) > 20 else "")
         if duplicates == "raise":
             raise InputDataError(
-                f"{len(repeated)} repeated value(s) of {dim!r}: {listing}; each map would overwrite the "
-                "other (overlapping files, or a file written twice?): remove the repeats, or pass "
+                f"{len(repeated)} repeated value(s) of {dim!r}: {listing}; which of the repeats to compute is "
+                "ambiguous (overlapping files, or a file written twice?): remove the repeats, or pass "
                 "duplicates='keep_first' (command line: --duplicates keep-first) to keep the first of each"
             )
         warnings.warn(
