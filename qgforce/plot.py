@@ -181,7 +181,8 @@ _SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 
 
 def _readable_units(units: str | None) -> str:
-    """CF/UDUNITS unit string with powers as superscripts: ``"K s-1"`` → ``"K s⁻¹"``.
+    """CF/UDUNITS unit string with powers as superscripts: ``"K s-1"`` → ``"K s⁻¹"``, a leading display
+    factor too (``"10-18 Pa-1 s-3"`` → ``"10⁻¹⁸ Pa⁻¹ s⁻³"``).
 
     A power after a closing parenthesis is raised too (``"K (100 km)-1"`` → ``"K (100 km)⁻¹"``); other
     tokens are left as written; ``"1"`` (dimensionless) gives "".
@@ -192,9 +193,11 @@ def _readable_units(units: str | None) -> str:
     if units in ("", "1"):
         return ""
     out = []
-    for tok in units.split():
+    for i, tok in enumerate(units.split()):
+        power = re.fullmatch(r"10(-?\d+)", tok) if i == 0 else None  # a display factor: "10-18 Pa-1" → "10⁻¹⁸ Pa⁻¹"
         m = _UNIT_TOKEN.match(tok)
-        out.append(m.group(1) + m.group(2).translate(_SUPERSCRIPT) if m else tok)
+        out.append("10" + power.group(1).translate(_SUPERSCRIPT) if power
+                   else m.group(1) + m.group(2).translate(_SUPERSCRIPT) if m else tok)
     return " ".join(out)
 
 
@@ -203,7 +206,7 @@ def _field_label(da, exponent: int = 0) -> str:
 
     With ``exponent`` k ≠ 0 the units read ``[10ᵏ units]``: the tick values are in multiples of 10ᵏ.
     """
-    name = da.attrs.get("long_name") or (str(da.name).replace("_", " ") if da.name is not None else "field")
+    name = _display_name(da) or "field"  # one name per field on every figure
     units = _readable_units(da.attrs.get("units"))
     if exponent:
         units = f"10{str(exponent).translate(_SUPERSCRIPT)} {units}".strip()
@@ -695,7 +698,6 @@ def _fill_colour_bar(fig, mesh, ax, field, fstyle, lv, ext):
         cbar.formatter = FuncFormatter(lambda v, _pos=None: f"{v / 10.0**k:.3g}")
         cbar.update_ticks()
     units = _readable_units(fstyle.units if fstyle is not None else field.attrs.get("units"))
-    units = re.sub(r"^10(-?\d+)(?= )", lambda m: "10" + m.group(1).translate(_SUPERSCRIPT), units)
     if k:
         units = f"10{str(k).translate(_SUPERSCRIPT)} {units}".strip()
     name = _display_name(field) or "field"

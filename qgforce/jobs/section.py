@@ -162,7 +162,9 @@ def _point_text(lat: float, lon: float) -> str:
 
 
 def _title(da: xr.DataArray, start, end, when, theta: bool, circulation: str | None) -> str:
-    name = da.attrs.get("long_name") or str(da.name).replace("_", " ")
+    from ..plot import _display_name
+
+    name = _display_name(da) or str(da.name).replace("_", " ")  # the maps' name of the field
     first = name + (f" — valid {when} UTC" if when else "")
     extra = [f"{_point_text(*start)} → {_point_text(*end)}"]
     if theta:
