@@ -422,6 +422,11 @@ def _pressure_derivative(a: np.ndarray, scale: np.ndarray, p: np.ndarray, store:
     return out, (kept if copy else None)
 
 
+def _pressure_derivative_block(block: np.ndarray, scale: np.ndarray, *, p: np.ndarray, store: np.dtype) -> np.ndarray:
+    """:func:`_pressure_derivative` of one dask chunk on one thread (a named function: deterministic task names)."""
+    return _pressure_derivative(block, scale, p, store, 1)[0]
+
+
 class PressureDerivative:
     """scale · ∂a/∂p by :func:`qgforce._forcing_kernels.pressure_derivative`, stored in the output dtype.
 
@@ -466,11 +471,11 @@ class PressureDerivative:
             return a.copy(deep=False, data=out)
         import dask.array as da
 
-        data = a.chunk({LEVEL: -1}).data
+        data = a.data.rechunk({a.ndim - 3: -1})  # the levels in one chunk (the data only: coordinates stay as given)
         s = da.from_array(np.ascontiguousarray(scale), chunks=data.chunks[-2:])
-        out = da.map_blocks(lambda block, sb: _pressure_derivative(block, sb, p, self.store, 1)[0], data, s,
-                            dtype=self.store, meta=np.empty((0,) * a.ndim, dtype=self.store))
-        return a.chunk({LEVEL: -1}).copy(deep=False, data=out)
+        out = da.map_blocks(_pressure_derivative_block, data, s, p=p, store=self.store, dtype=self.store,
+                            meta=np.empty((0,) * a.ndim, dtype=self.store))
+        return a.copy(deep=False, data=out)
 
     def stored(self, a: xr.DataArray):
         """``a`` in the output dtype if a call read it (numpy input), else None."""

@@ -816,6 +816,16 @@ def _dataset(parts: dict, attrs: dict, grid: Grid | None = None, owned=()) -> xr
     return out
 
 
+def _same_variable(a: xr.Variable, b: xr.Variable) -> bool:
+    """Equal coordinate variables; dask-backed ones by their graph's name (no computation while a lazy
+    result is being built: the parts' coordinates come from the same input arrays)."""
+    if a.dims != b.dims or a.dtype != b.dtype or a.shape != b.shape:
+        return False
+    if a.chunks is not None or b.chunks is not None:
+        return a.chunks is not None and b.chunks is not None and a.data.name == b.data.name
+    return np.array_equal(a.values, b.values)
+
+
 def _assemble(parts: dict) -> xr.Dataset:
     """``xr.Dataset(parts)``, built from the variables and one set of coordinates when the parts'
     coordinates agree (they come from one call): the alignment of every part is then skipped,
@@ -824,8 +834,7 @@ def _assemble(parts: dict) -> xr.Dataset:
     for da in parts.values():
         for name, c in da.coords.variables.items():  # Variables: no DataArray built per coordinate
             seen = coords.setdefault(name, c)
-            if seen is not c and (seen.dims != c.dims or seen.dtype != c.dtype
-                                  or not np.array_equal(seen.values, c.values)):
+            if seen is not c and not _same_variable(seen, c):
                 return xr.Dataset(parts)
     return xr.Dataset({name: da.variable for name, da in parts.items()}, coords=coords)
 

@@ -277,3 +277,21 @@ def test_pressure_derivative_kernel_is_the_numpy_path_bit_for_bit(levels, thread
     deriv = PressureDerivative(np.dtype(np.float32), threads, forcing._scaled_ddp)
     np.testing.assert_array_equal(deriv(moved, scale).values, forcing._scaled_ddp(moved, scale).values)
     assert deriv.stored(moved) is None
+
+
+def test_dask_input_with_a_lazy_coordinate_stays_lazy():
+    """A non-index coordinate that dask holds too (a valid time beside the time axis, chunked with the
+    data) does not make the result's assembly compute anything; the values are the numpy input's."""
+    ds = _two_steps(**DATELINE).assign_coords(
+        valid_time=("time", np.array(["2026-01-01T00", "2026-01-01T06"], dtype="datetime64[ns]")))
+    lazy = ds.chunk({"time": 1, "level": 2})
+    assert lazy["valid_time"].chunks is not None
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        with dask.config.set(scheduler=_refuse_compute):
+            out = forcing.forcing_terms(lazy)
+            forcing.omega_rhs(lazy)
+        ref = forcing.forcing_terms(ds)
+    for name in ref.data_vars:
+        np.testing.assert_allclose(out[name].values, ref[name].values, rtol=1e-12, atol=0, equal_nan=True,
+                                   err_msg=name)
