@@ -126,8 +126,9 @@ _OPTIONS = {o.dest: o for o in (
             "e.g. 0, the control in GRIB); required when the file holds several members, see 'inspect'; "
             "'all' (compute only): every member, the file keeping the member dimension",
             "member", metavar="N"),
-    _Option("step", ("--step",), "forecast step to compute, in hours (6) or with a unit (6h, 90min); required "
-            "when the file holds several steps; the valid time becomes the time", "step", metavar="HOURS"),
+    _Option("step", ("--step",), "forecast step to compute, in hours (6) or with a unit (6h, 90min), or 'all' "
+            "(every step of one forecast); required when the file holds several steps; the valid time becomes "
+            "the time", "step", metavar="HOURS"),
     _Option("units", ("--units",), "units of a mislabelled variable, replacing its units attribute, e.g. "
             "geopotential=m for geopotential height labelled m2 s-2 (repeatable, or a comma list)", "units",
             metavar="VAR=UNITS"),

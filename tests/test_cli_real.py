@@ -184,7 +184,7 @@ def test_member_and_step_from_the_config(tmp_path, capsys):
 @pytest.mark.parametrize("args, fragments", [
     (["--member", "7"], ["--member 7 is not among the ensemble members", "number: 0, 1"]),
     (["--member", "0.5"], ["--member", "whole number"]),
-    (["--member", "0", "--step", "soon"], ["--step", "number of hours"]),
+    (["--member", "0", "--step", "soon"], ["--step", "number of hours", "'all'"]),
     (["--member", "0", "--step", "-6"], ["--step", "zero or positive"]),
     (["--member", "0", "--step", "6"], ["--step 6.0 is not among the forecast steps"]),
 ])
@@ -225,6 +225,43 @@ def test_inspect_shows_members_steps_and_valid_times(forecast_file, capsys):
     status, text, err = cli(capsys, "inspect", NC, "--member", "1")  # a chosen member is described as such
     assert status == 0, err
     assert "ensemble member: 1 (number)" in text
+
+
+def test_every_step_makes_the_valid_times_the_time_axis(forecast_file, tmp_path, capsys):
+    """--step all: every step of the forecast in one file, the valid times as the time axis, each
+    equal to the analysis at that time (the forecast file is the two analyses relabelled)."""
+    out = tmp_path / "steps.nc"
+    status, stdout, err = cli(capsys, "compute", forecast_file, "--step", "all", "-o", out, "--dtype", "float64",
+                              "--fields", "temperature_advection,q_vector_forcing")
+    assert status == 0, err
+    assert "2 time(s) x 2 level(s)" in stdout
+    ref = library_terms(quiet_open(NC).isel(number=0))
+    with xr.open_dataset(out) as got:
+        assert got["time"].values.tolist() == ref["time"].values.tolist()  # the valid times
+        assert got["forecast_reference_time"].values == np.datetime64("2017-01-01T00:00", "ns")
+        assert got["step"].dims == ("time",)  # the step beside each valid time
+        assert "step=all" in got.attrs["history"]
+        for name in ("temperature_advection", "q_vector_forcing"):
+            np.testing.assert_allclose(got[name].values, ref[name].values, rtol=1e-12, equal_nan=True, err_msg=name)
+    maps = tmp_path / "maps"
+    status, stdout, err = cli(capsys, "maps", forecast_file, "--step", "all", "--output-dir", maps,
+                              "--fields", "temperature_advection", "--levels", "500", "--no-summary", "-q")
+    assert status == 0, err
+    assert sorted(p.name for p in maps.glob("*.png")) == [
+        "temperature_advection_500hPa_20170101T0000.png", "temperature_advection_500hPa_20170101T1200.png"]
+
+
+def test_every_step_of_several_forecasts_is_refused(tmp_path, capsys):
+    """Two reference times × two steps: the valid time varies along two axes; --step all says so."""
+    raw = xr.open_dataset(NC).isel(number=0).drop_vars(["step", "valid_time"]).load()
+    steps = np.array([0, 6], dtype="timedelta64[h]").astype("timedelta64[ns]")
+    fc = raw.expand_dims(step=steps).transpose("time", "step", ...)
+    fc = fc.assign_coords(valid_time=(("time", "step"), raw["time"].values[:, None] + steps[None, :]))
+    path = tmp_path / "two_forecasts.nc"
+    fc.to_netcdf(path)
+    status, _, err = cli(capsys, "compute", path, "--step", "all", "-o", tmp_path / "x.nc")
+    assert_user_error(status, err, "every forecast step of one forecast", "2 reference times")
+    assert not (tmp_path / "x.nc").exists()
 
 
 def test_step_chooses_the_valid_time(forecast_file, tmp_path, capsys):

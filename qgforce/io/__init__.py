@@ -32,7 +32,7 @@ from .crs import _crs_from_cf, crs_from_cf
 from .grib import grib_inventory, open_grib
 from .normalize import DUPLICATE_POLICIES, check_values, normalize, require
 from .plausible import PLAUSIBILITY_MODES, check_plausible, standard_atmosphere_height
-from .realisation import EVERY_MEMBER, forecast_axes, select_realisation
+from .realisation import EVERY, forecast_axes, is_every, select_realisation
 from .paths import _resolve_paths
 from .reader import open_dataset
 from .screen import BAD_FILE_POLICIES, _file_problem, _screen_files
@@ -47,7 +47,8 @@ __all__ = [
     "crs_from_cf",
     "check_plausible",
     "select_realisation",
-    "EVERY_MEMBER",
+    "EVERY",
+    "is_every",
     "forecast_axes",
     "open_grib",
     "grib_inventory",

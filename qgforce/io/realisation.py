@@ -64,14 +64,19 @@ def forecast_axes(ds: xr.Dataset) -> dict:
     }
 
 
-#: ``member=`` value that keeps every member (the member axis stays a dimension of the results)
-EVERY_MEMBER = "all"
+#: ``member=`` / ``step=`` value that keeps every member / every step (the axis stays a dimension of the
+#: results; the steps become the valid times)
+EVERY = "all"
+
+
+def is_every(value) -> bool:
+    """Whether a ``member=`` or ``step=`` value asks for every member or step (:data:`EVERY`)."""
+    return isinstance(value, str) and value.strip().lower() == EVERY
 
 
 def _pick(ds, axis: str | None, value, what: str, keyword: str):
-    if keyword == "member" and isinstance(value, str) and value.strip().lower() == EVERY_MEMBER and not (
-            axis is not None and EVERY_MEMBER in [str(v).lower() for v in np.atleast_1d(ds[axis].values)]):
-        return ds  # every member (unless a member is labelled "all")
+    if is_every(value) and not (axis is not None and EVERY in [str(v).lower() for v in np.atleast_1d(ds[axis].values)]):
+        return ds  # every member or step (unless a member is labelled "all")
     if value is None:
         if axis is not None and axis in ds.dims and ds.sizes[axis] > 1:
             shown = ", ".join(_text(v) for v in ds[axis].values[:30])
@@ -119,11 +124,12 @@ def select_realisation(ds: xr.Dataset, member=None, step=None) -> xr.Dataset:
         Raw or normalised model output.
     member : int, optional
         Value of the member coordinate (``number`` in GRIB: 0 is the control).  Needed when
-        there are several members; ``"all"`` (:data:`EVERY_MEMBER`) keeps every member, the
-        member axis then staying a dimension (the diagnostics work member by member).
+        there are several members; ``"all"`` (:data:`EVERY`) keeps every member, the member axis
+        then staying a dimension (the diagnostics work member by member).
     step : number (hours), str or numpy.timedelta64, optional
         Forecast step (``6``, ``"6h"``, ``np.timedelta64(6, "h")``).  Needed when there are
-        several steps.
+        several steps; ``"all"`` keeps every step of one forecast, the valid times becoming the
+        time axis (the step stays as a coordinate along it).
 
     Returns
     -------
@@ -139,7 +145,8 @@ def select_realisation(ds: xr.Dataset, member=None, step=None) -> xr.Dataset:
     ------
     InputDataError
         Several members or steps and none chosen, or a value that is not in the data, listing
-        the values available; a value for an axis the data do not have.
+        the values available; a value for an axis the data do not have; ``step="all"`` on data
+        of several reference times.
 
     Examples
     --------
@@ -153,11 +160,17 @@ def select_realisation(ds: xr.Dataset, member=None, step=None) -> xr.Dataset:
     out = _pick(ds, axes["member"], member, "ensemble member", "member")
     out = _pick(out, axes["step"], step, "forecast step", "step")
     valid = axes["valid_time"]
+    if is_every(step) and valid is not None and out[valid].ndim > 1:
+        ref = [d for d in out[valid].dims if d != axes["step"]]
+        raise InputDataError(
+            f"step='all' computes every forecast step of one forecast, the valid times becoming the time axis; "
+            f"the data hold {out[valid].size // out.sizes[axes['step']]} reference times ({', '.join(ref)}): "
+            f"choose one step, or give the files of one forecast")
     if valid is not None and out[valid].ndim == 1 and out[valid].dims[0] != valid:
         dim = out[valid].dims[0]
         out = out.swap_dims({dim: valid})
-        if dim == "time":  # GRIB layout: "time" is the reference time
-            out = out.rename_vars({"time": "forecast_reference_time"})
+        if dim == "time" or ("time" in out.coords and out["time"].ndim == 0 and "time" not in out.dims):
+            out = out.rename_vars({"time": "forecast_reference_time"})  # GRIB layout: "time" is the reference time
         if "time" not in out.variables:
             out = out.rename({valid: "time"})
     elif valid is not None and out[valid].ndim == 0 and "time" in out.coords and out["time"].ndim == 0 \

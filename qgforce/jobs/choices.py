@@ -232,7 +232,7 @@ def member_value(value):
 def step_value(value):
     """A forecast step as given on the command line: hours (``6``, ``1.5``) or a duration with its
     unit (``6h``, ``90min``, ``1 day``), as a number of hours (what
-    :func:`qgforce.io.select_realisation` takes for a step of any type).
+    :func:`qgforce.io.select_realisation` takes for a step of any type); ``all``: every step.
 
     Raises
     ------
@@ -241,15 +241,19 @@ def step_value(value):
     """
     import pandas as pd
 
+    from ..io import EVERY, is_every
+
     text = str(value).strip()
+    if is_every(text):
+        return EVERY
     try:
         delta = pd.Timedelta(hours=float(text))
     except ValueError:
         try:
             delta = pd.Timedelta(text)
         except (ValueError, TypeError):
-            raise OptionError(f"a forecast step is a number of hours (6) or a duration with its unit (6h, "
-                              f"90min); got {value!r}") from None
+            raise OptionError(f"a forecast step is a number of hours (6), a duration with its unit (6h, "
+                              f"90min) or 'all'; got {value!r}") from None
     if pd.isna(delta) or delta < pd.Timedelta(0):
         raise OptionError(f"a forecast step is a finite duration, zero or positive; got {value!r}")
     return delta.total_seconds() / 3600.0
@@ -281,9 +285,9 @@ def choose_realisation(ds: xr.Dataset, member=None, step=None, every_member: boo
     OptionError
         ``member="all"`` for a job that draws one member.
     """
-    from ..io import EVERY_MEMBER, select_realisation
+    from ..io import is_every, select_realisation
 
-    if not every_member and isinstance(member, str) and member.strip().lower() == EVERY_MEMBER:
+    if not every_member and is_every(member):
         raise OptionError("--member all keeps every ensemble member, which only 'compute' writes (one file with "
                           "the member dimension); maps and sections draw one member: choose one with --member N "
                           "(see 'inspect' for the members)")

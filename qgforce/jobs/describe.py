@@ -165,7 +165,8 @@ class InputDescription:
         for key, what, option in (("member", "ensemble members", "--member"), ("step", "forecast steps", "--step")):
             values = r.get(f"{key}_values") or []
             if r.get(key) and len(values) > 1:
-                every = "; compute takes every member with --member all" if key == "member" else ""
+                every = ("; compute takes every member with --member all" if key == "member"
+                         else "; every step, one valid time each, with --step all")
                 out.append(f"{what}: {len(values)} ({r[key]}: {', '.join(_few(values, 12))}); a job computes one, "
                            f"chosen with {option}{every}")
             elif r.get(key) and values:
