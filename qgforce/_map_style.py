@@ -182,9 +182,10 @@ def _scalar(da, name):
 def time_text(da, fmt) -> str:
     """``"valid 2046-11-20 00:00 UTC (init 2046-11-19 12:00 UTC, +12 h)"`` from a field's scalar coords.
 
-    The valid time is ``valid_time`` when present, else ``time`` (plus ``step`` when there is one: then
-    ``time`` is the initial time, as in GRIB-derived data); the initial time is
-    ``forecast_reference_time`` when present, else ``time`` when ``valid_time`` or ``step`` is.  CF times
+    The valid time is ``valid_time`` when present, else ``time`` (plus ``step`` when there is one and no
+    ``forecast_reference_time``: then ``time`` is the initial time, as in GRIB-derived data); the
+    initial time is ``forecast_reference_time`` when present, else ``time`` when ``valid_time`` or
+    ``step`` is.  CF times
     without a zone are taken as UTC (CF conventions, section 4.4).  ``fmt`` formats one time value.
     Empty when the field has no scalar time.
     """
@@ -192,10 +193,10 @@ def time_text(da, fmt) -> str:
     base = _scalar(da, "time")
     init = _scalar(da, "forecast_reference_time")
     if valid is None and base is not None:
-        if step is not None and np.issubdtype(np.asarray(step).dtype, np.timedelta64):
-            valid, init = base + step, (init if init is not None else base)
+        if init is None and step is not None and np.issubdtype(np.asarray(step).dtype, np.timedelta64):
+            valid, init = base + step, base  # GRIB layout: time is the initial time
         else:
-            valid = base
+            valid = base  # with a forecast_reference_time, time is the valid time (qgforce.io.select_realisation)
     elif valid is not None and init is None:
         init = base
     if valid is None:

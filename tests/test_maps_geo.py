@@ -229,6 +229,39 @@ def test_time_text_valid_initial_and_lead():
     vt = field("x", "1", wave(1.0), time="2051-02-03T00", valid_time=np.datetime64("2051-02-04T12", "ns"))
     assert MS.time_text(vt, fmt) == "valid 2051-02-04 12:00 UTC (init 2051-02-03 00:00 UTC, +36 h)"
     assert "valid 2051-02-03 18:00 UTC" in plot.map_field(fc, projection=False).ax.get_title()
+    # after qgforce.io.select_realisation: time is the valid time, the initial time forecast_reference_time,
+    # the step beside them (it is not added again)
+    chosen = field("x", "1", wave(1.0), time="2051-02-03T18", step=np.timedelta64(18, "h"),
+                   forecast_reference_time=np.datetime64("2051-02-03T00", "ns"))
+    assert MS.time_text(chosen, fmt) == "valid 2051-02-03 18:00 UTC (init 2051-02-03 00:00 UTC, +18 h)"
+
+
+def test_maps_of_every_step_are_titled_with_their_valid_time(tmp_path, monkeypatch):
+    """The maps of --step all: each file name and title give the same valid time and the lead."""
+    from qgforce.cli import main
+
+    raw = xr.open_dataset(ROOT / "tests" / "data" / "era5-levels-members-subset.nc").isel(number=0)
+    raw = raw.drop_vars(["step", "valid_time"]).load()
+    ref = raw["time"].values[0]
+    steps = (raw["time"].values - ref).astype("timedelta64[ns]")
+    fc = raw.rename({"time": "step"}).assign_coords(step=("step", steps), time=ref, valid_time=("step", ref + steps))
+    fc.to_netcdf(tmp_path / "forecast.nc")
+    titles = []
+    real_save = plot.save_figure
+
+    def keep_title(fig, path, *args, **kwargs):
+        titles.append((Path(path).name, " ".join(ax.get_title() for ax in fig.axes)))
+        return real_save(fig, path, *args, **kwargs)
+
+    monkeypatch.setattr(plot, "save_figure", keep_title)  # the maps job saves through plot.save_figure
+    status = main(["maps", str(tmp_path / "forecast.nc"), "--step", "all", "--output-dir", str(tmp_path / "m"),
+                   "--fields", "temperature_advection", "--levels", "500", "--no-summary", "-q"])
+    assert status == 0
+    got = dict(titles)
+    assert "valid 2017-01-01 12:00 UTC (init 2017-01-01 00:00 UTC, +12 h)" in \
+        got["temperature_advection_500hPa_20170101T1200.png"]
+    assert "valid 2017-01-01 00:00 UTC (init 2017-01-01 00:00 UTC, +0 h)" in \
+        got["temperature_advection_500hPa_20170101T0000.png"]
 
 
 # ====================================================================== summary
