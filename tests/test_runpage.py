@@ -147,6 +147,13 @@ def test_run_page_in_headless_chromium(run_dir, browser, tmp_path):
     browser.evaluate("(() => { const s = document.getElementById('level'); s.value = '500';"
                      " s.dispatchEvent(new Event('change')); })()")
     assert _state(browser)["src"].endswith(f"omega_total_500hPa_{STAMPS[1]}.png")
+    # the fields are offered, and the captions written, with the names the maps give them (the table of
+    # output variables), not with the file-name words
+    from qgforce import variables
+
+    offered = browser.evaluate("Array.from(document.getElementById('field').options).map((o) => o.textContent)")
+    assert variables.panel_title("omega_total") in offered and "omega total" not in offered
+    assert _state(browser)["caption"].startswith(variables.panel_title("omega_total") + ", 500 hPa")
     browser.evaluate("(() => { const s = document.getElementById('time'); s.value = '2046-11-19 18:00';"
                      " s.dispatchEvent(new Event('change')); })()")
     assert _state(browser)["src"].endswith(f"omega_total_500hPa_{STAMPS[2]}.png")

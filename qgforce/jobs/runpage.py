@@ -60,8 +60,16 @@ def _stamp_text(stamp: str) -> str:
     return f"{stamp[:4]}-{stamp[4:6]}-{stamp[6:8]} {stamp[9:11]}:{stamp[11:13]}"
 
 
+def _field_name(field: str) -> str:
+    """The name a field has on the maps (the panel title of the table of output variables), else its
+    file-name word with spaces ("summary" for the summary figures)."""
+    from .. import variables as V
+
+    return V.panel_title(field) if V.find(field) is not None else field.replace("_", " ")
+
+
 def _default_title(rec: MapRecord) -> str:
-    parts = [rec.field.replace("_", " ")]
+    parts = [_field_name(rec.field)]
     if rec.level_hpa is not None:
         parts.append(f"{rec.level_hpa:g} hPa")
     if rec.time is not None:
@@ -201,7 +209,8 @@ function step(select, by) {
   select.selectedIndex = Math.min(n - 1, Math.max(0, select.selectedIndex + by));
   show();
 }
-fill(pick.field, distinct(maps.map((m) => m.field)), (v) => v.replaceAll("_", " "));
+const names = Object.fromEntries(maps.map((m) => [m.field, m.name]));
+fill(pick.field, distinct(maps.map((m) => m.field)), (v) => names[v]);
 for (const s of Object.values(pick)) s.addEventListener("change", show);
 document.addEventListener("keydown", (e) => {
   const moves = { ArrowLeft: [pick.time, -1], ArrowRight: [pick.time, 1],
@@ -220,8 +229,8 @@ _CAUTION = ("QG diagnostics of a balanced approximation: unreliable near the equ
 
 
 def _page(records: list[MapRecord], title: str) -> str:
-    data = [{"field": r.field, "level": r.level_hpa, "time": r.time, "file": Path(r.file).as_posix(),
-             "title": r.title or _default_title(r)} for r in records]
+    data = [{"field": r.field, "name": _field_name(r.field), "level": r.level_hpa, "time": r.time,
+             "file": Path(r.file).as_posix(), "title": r.title or _default_title(r)} for r in records]
     payload = json.dumps(data, ensure_ascii=False).replace("<", "\\u003c")  # no "</script>" inside the data
     t = html.escape(title)
     return f"""<!DOCTYPE html>
